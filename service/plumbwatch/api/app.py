@@ -1,0 +1,61 @@
+"""Assembles the FastAPI application from settings (no import-time configuration)."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator, Callable
+from contextlib import asynccontextmanager
+from datetime import UTC, datetime
+
+from fastapi import FastAPI
+from sqlalchemy.engine import Engine
+
+from plumbwatch import __version__
+from plumbwatch.api import errors
+from plumbwatch.api.routes import health, models, outcomes, predictions
+from plumbwatch.config import Settings
+from plumbwatch.store.engine import create_engine
+from plumbwatch.store.migrate import require_current
+from plumbwatch.store.models import apply_declarations
+from plumbwatch.store.writer import GroupWriter
+from plumbwatch.timefmt import to_micros
+
+
+def system_clock_us() -> int:
+    return to_micros(datetime.now(UTC))
+
+
+def create_app(
+    settings: Settings,
+    *,
+    engine: Engine | None = None,
+    clock_us: Callable[[], int] = system_clock_us,
+) -> FastAPI:
+    """Build the app. The schema must be current; TOML declarations are applied at start."""
+    engine = engine or create_engine(
+        settings.database_url, busy_timeout_ms=settings.sqlite_busy_timeout_ms
+    )
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        require_current(engine)
+        apply_declarations(engine, settings.models, now_us=clock_us())
+        app.state.writer.start()
+        try:
+            yield
+        finally:
+            app.state.writer.stop()
+
+    app = FastAPI(
+        title="plumbwatch",
+        version=__version__,
+        description="Watches whether a classifier's probabilities still mean what they say.",
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    app.state.engine = engine
+    app.state.clock_us = clock_us
+    app.state.writer = GroupWriter(engine)
+    errors.install(app)
+    for module in (health, models, predictions, outcomes):
+        app.include_router(module.router)
+    return app

@@ -1,0 +1,5 @@
+"""The ``plumbwatch`` command."""
+
+from plumbwatch.cli.main import main
+
+__all__ = ["main"]

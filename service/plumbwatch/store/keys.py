@@ -1,0 +1,117 @@
+"""Client-id lookup through compact 64-bit hashes, in two tiers.
+
+Real pipelines send random UUIDs. A unique index on the id text puts every new
+row on a random index page, so each commit rewrites about one page per row (on
+SQLite the whole page goes to the WAL). Instead each id is reduced to a 64-bit
+BLAKE2b hash and written to ``row_keys_recent``, a table small enough that the
+pages a commit dirties are few; from time to time :func:`settle` moves the
+recent tier into ``row_keys`` in hash order, touching each settled page about
+once per move instead of once per row.
+
+A hash only narrows the search: callers always compare the stored id text, so a
+collision can never merge two different ids. Uniqueness comes from the writer:
+check and insert run inside one write transaction (SQLite's write lock; on
+PostgreSQL a per-model advisory lock, see :func:`lock_model`).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections import defaultdict
+from collections.abc import Iterable, Sequence
+
+import sqlalchemy as sa
+
+from plumbwatch.store.tables import row_keys, row_keys_recent
+
+_LOOKUP_CHUNK = 500
+_LOCK_NAMESPACE = 0x706C  # first key of pg_advisory_xact_lock(ns, model_id)
+
+
+def id_hash(client_id: str) -> int:
+    digest = hashlib.blake2b(client_id.encode("utf-8"), digest_size=8).digest()
+    return int.from_bytes(digest, "big", signed=True)
+
+
+def lock_model(conn: sa.Connection, model_id: int) -> None:
+    """Serialise writers of one model across PostgreSQL servers (no-op on SQLite,
+    where the write transaction already holds the database's write lock)."""
+    if conn.dialect.name == "postgresql":
+        conn.execute(
+            sa.text("SELECT pg_advisory_xact_lock(:ns, :model)"),
+            {"ns": _LOCK_NAMESPACE, "model": model_id},
+        )
+
+
+def lookup(
+    conn: sa.Connection, *, model_id: int, kind: str, hashes: Sequence[int]
+) -> dict[int, list[int]]:
+    """Row ids stored under each hash, from both tiers (one statement, one snapshot)."""
+    found: dict[int, list[int]] = defaultdict(list)
+    unique = sorted(set(hashes))
+    for start in range(0, len(unique), _LOOKUP_CHUNK):
+        chunk = unique[start : start + _LOOKUP_CHUNK]
+        parts = [
+            sa.select(table.c.id_hash, table.c.row_id).where(
+                table.c.model_id == model_id, table.c.kind == kind, table.c.id_hash.in_(chunk)
+            )
+            for table in (row_keys, row_keys_recent)
+        ]
+        for h, row_id in conn.execute(sa.union_all(*parts)):
+            found[h].append(row_id)
+    return found
+
+
+def add(conn: sa.Connection, *, model_id: int, kind: str, pairs: Iterable[tuple[int, int]]) -> int:
+    """Record (hash, row id) pairs in the recent tier; returns how many."""
+    params = [
+        {"model_id": model_id, "kind": kind, "id_hash": h, "row_id": row_id} for h, row_id in pairs
+    ]
+    if params:
+        conn.execute(sa.insert(row_keys_recent), params)
+    return len(params)
+
+
+def recent_count(conn: sa.Connection) -> int:
+    return int(conn.execute(sa.select(sa.func.count()).select_from(row_keys_recent)).scalar_one())
+
+
+def settle(conn: sa.Connection) -> int:
+    """Move the recent tier into the settled one, in key order. Returns rows moved."""
+    columns = "model_id, kind, id_hash, row_id"
+    if conn.dialect.name == "postgresql":
+        # One statement: rows another server adds meanwhile stay in the recent tier.
+        result = conn.execute(
+            sa.text(
+                f"WITH moved AS (DELETE FROM row_keys_recent RETURNING {columns}) "
+                f"INSERT INTO row_keys ({columns}) SELECT {columns} FROM moved "
+                "ORDER BY model_id, kind, id_hash, row_id"
+            )
+        )
+        return int(result.rowcount or 0)
+    moved = conn.execute(
+        sa.text(
+            f"INSERT INTO row_keys ({columns}) SELECT {columns} FROM row_keys_recent "
+            "ORDER BY model_id, kind, id_hash, row_id"
+        )
+    ).rowcount
+    conn.execute(sa.text("DELETE FROM row_keys_recent"))
+    return int(moved or 0)
+
+
+def allocate_ids(conn: sa.Connection, table: sa.Table, n: int) -> list[int]:
+    """Primary keys for n new rows, so that inserts need no RETURNING round trip.
+
+    SQLite: the caller holds the write lock, so max(id) is stable. PostgreSQL: the
+    table's sequence hands out ids that no other server will get.
+    """
+    if n == 0:
+        return []
+    if conn.dialect.name == "postgresql":
+        rows = conn.execute(
+            sa.text("SELECT nextval(pg_get_serial_sequence(:t, 'id')) FROM generate_series(1, :n)"),
+            {"t": table.name, "n": n},
+        )
+        return [r[0] for r in rows]
+    first = conn.execute(sa.select(sa.func.coalesce(sa.func.max(table.c.id), 0) + 1)).scalar_one()
+    return list(range(int(first), int(first) + n))
