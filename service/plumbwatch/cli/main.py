@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from datetime import UTC, datetime
 
 from sqlalchemy.engine import Engine
@@ -28,12 +29,21 @@ def _now_us() -> int:
     return to_micros(datetime.now(UTC))
 
 
-def _engine(settings: Settings) -> Engine:
-    return create_engine(settings.database_url, busy_timeout_ms=settings.sqlite_busy_timeout_ms)
+@contextmanager
+def _engine(settings: Settings) -> Iterator[Engine]:
+    engine = create_engine(settings.database_url, busy_timeout_ms=settings.sqlite_busy_timeout_ms)
+    try:
+        yield engine
+    finally:
+        engine.dispose()
 
 
 def cmd_migrate(settings: Settings, _args: argparse.Namespace) -> int:
-    engine = _engine(settings)
+    with _engine(settings) as engine:
+        return _migrate(engine)
+
+
+def _migrate(engine: Engine) -> int:
     before = current_revision(engine)
     upgrade(engine)
     after = current_revision(engine)
@@ -51,19 +61,28 @@ def cmd_serve(settings: Settings, args: argparse.Namespace) -> int:
 
     host = args.host or settings.host
     port = args.port or settings.port
-    engine = _engine(settings)
-    require_current(engine)  # refuse early, with the command that fixes it
-    app = create_app(settings, engine=engine)
-    print(f"plumbwatch {__version__} serving on http://{host}:{port}", flush=True)
-    uvicorn.run(
-        app, host=host, port=port, log_level="info", access_log=False, timeout_graceful_shutdown=10
-    )
+    with _engine(settings) as engine:
+        require_current(engine)  # refuse early, with the command that fixes it
+        app = create_app(settings, engine=engine)
+        print(f"plumbwatch {__version__} serving on http://{host}:{port}", flush=True)
+        uvicorn.run(
+            app,
+            host=host,
+            port=port,
+            log_level="info",
+            access_log=False,
+            timeout_graceful_shutdown=10,
+        )
     return 0
 
 
 def cmd_token(settings: Settings, args: argparse.Namespace) -> int:
-    engine = _engine(settings)
-    require_current(engine)
+    with _engine(settings) as engine:
+        require_current(engine)
+        return _token(engine, args)
+
+
+def _token(engine: Engine, args: argparse.Namespace) -> int:
     now_us = _now_us()
     if args.action == "create":
         expires = None

@@ -25,7 +25,8 @@ def migrations_dir() -> Path:
 def alembic_config(engine: Engine) -> Config:
     cfg = Config()
     cfg.set_main_option("script_location", str(migrations_dir()))
-    cfg.set_main_option("sqlalchemy.url", engine.url.render_as_string(hide_password=False))
+    url = engine.url.render_as_string(hide_password=False)
+    cfg.set_main_option("sqlalchemy.url", url.replace("%", "%%"))  # configparser escaping
     return cfg
 
 

@@ -40,7 +40,8 @@ def _encode_cursor(name: str) -> str:
 
 def _decode_cursor(cursor: str) -> str:
     try:
-        return base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)).decode()
+        padded = cursor + "=" * (-len(cursor) % 4)
+        return base64.b64decode(padded, altchars=b"-_", validate=True).decode()
     except (ValueError, UnicodeDecodeError):
         raise InvalidInput(
             "cursor is not one this server issued",

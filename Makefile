@@ -1,0 +1,46 @@
+# plumbwatch: the two set-up commands are `make demo` and `make test`.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+PYTEST_ARGS ?=
+
+.PHONY: help venv test test-fast lint typecheck bench demo clean
+
+help:
+	@echo "make demo       start plumbwatch on SQLite under ./var/ with fresh tokens"
+	@echo "make test       lint, type-check and run the whole suite (SQLite and PostgreSQL)"
+	@echo "make test-fast  the tests without the slow ones, stopping at the first failure"
+	@echo "make bench      run the benchmarks under tests/benchmarks/ (a report, not a test)"
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e ".[dev]"
+	touch $(STAMP)
+
+venv: $(STAMP)
+
+lint: $(STAMP)
+	$(BIN)/ruff check service tests migrations demo_feed
+	$(BIN)/ruff format --check service tests migrations demo_feed
+
+typecheck: $(STAMP)
+	$(BIN)/mypy
+
+test: lint typecheck
+	$(BIN)/pytest --timeout=600 $(PYTEST_ARGS)
+
+test-fast: $(STAMP)
+	$(BIN)/pytest -x -q -m "not slow" $(PYTEST_ARGS)
+
+bench: $(STAMP)
+	$(BIN)/python tests/benchmarks/bench_stats.py
+	$(BIN)/python tests/benchmarks/bench_ingest.py
+
+demo: $(STAMP)
+	mkdir -p var
+	PLUMBWATCH_DATABASE_URL=$${PLUMBWATCH_DATABASE_URL:-sqlite:///./var/demo.db} $(BIN)/plumbwatch demo
+
+clean:
+	rm -rf $(VENV) .pytest_cache .mypy_cache .ruff_cache .hypothesis

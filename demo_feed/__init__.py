@@ -1,0 +1,1 @@
+"""The fictional parcel-courier demo feed (built in the newcomer issue)."""

@@ -1,0 +1,165 @@
+"""Smooth ECE: kernel-smoothed calibration error with a self-chosen bandwidth.
+
+With a Gaussian kernel ``K_σ`` reflected at 0 and 1, the smoothed residual
+density is ``R(t) = (1/n) Σ_i K_σ(t, f_i)(y_i − f_i)`` and the smoothed
+forecast density ``D(t) = (1/n) Σ_i K_σ(t, f_i)``. Then
+
+    smECE_σ = ∫_0^1 |R(t)| dt / ∫_0^1 D(t) dt
+
+(the denominator is 1 up to the kernel mass lost beyond one reflection on
+each side, negligible for σ < 0.3). The hyperparameter-free value uses the
+fixed point ``σ*`` with ``smECE_σ* = σ*`` (METHODS.md §2.6).
+
+Discretisation (our own): points are spread onto a uniform grid of ``G``
+nodes on [0, 1] by linear binning (each point's weight split between its two
+neighbouring nodes, which keeps every bin's mass and mean exact), the
+reflected array is convolved with the sampled kernel by FFT, and the
+integrals use the trapezoid rule on the same nodes. ``G`` grows as σ
+shrinks (``h = 1/(G−1) <= σ/40``), so the discretisation error is of order
+``(h/σ)^2`` relative, well below 1e-4 in the tests. The fixed point is solved
+by Brent's method to 1e-7, not by a fixed number of halvings.
+
+References
+----------
+Błasiok & Nakkiran, "Smooth ECE: principled reliability diagrams via kernel
+smoothing", arXiv 2309.12236 (2023), ICLR 2024, sections 3-4.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy import optimize, signal
+
+from plumbwatch.stats._result import Undefined
+from plumbwatch.stats._validate import check_binary_pair
+from plumbwatch.stats.sketch import Sketch
+
+FloatArray = NDArray[np.float64]
+
+SIGMA_MIN = 1e-3  # below this the fixed-point search stops (relplot uses the same floor)
+_MIN_NODES = 2001
+_NODES_PER_SIGMA = 40
+
+
+@dataclass(frozen=True)
+class SmoothEce:
+    """Smooth ECE at bandwidth ``sigma``; ``fixed_point`` says whether σ solved smECE_σ = σ."""
+
+    value: float
+    sigma: float
+    fixed_point: bool
+    n: float
+
+
+def _smooth_ece_points(loc: FloatArray, resid: FloatArray, mass: FloatArray, sigma: float) -> float:
+    """smECE_σ for weighted point masses: residual weights and forecast weights at ``loc``."""
+    n_nodes = max(_MIN_NODES, math.ceil(_NODES_PER_SIGMA / sigma) + 1)
+    h = 1.0 / (n_nodes - 1)
+    pos = loc * (n_nodes - 1)
+    left = np.minimum(pos.astype(np.intp), n_nodes - 2)
+    frac = pos - left
+
+    def spread(w: FloatArray) -> FloatArray:
+        lo = np.bincount(left, w * (1.0 - frac), n_nodes)
+        hi = np.bincount(left + 1, w * frac, n_nodes)
+        out: FloatArray = (lo + hi).astype(np.float64)
+        return out
+
+    half = min(n_nodes - 1, math.ceil(8.0 * sigma / h))
+    offsets = np.arange(-half, half + 1) * h
+    kernel = np.exp(-0.5 * (offsets / sigma) ** 2) / (math.sqrt(2.0 * math.pi) * sigma)
+
+    def smooth(values: FloatArray) -> FloatArray:
+        # Mirror images about 0 and about 1: ext covers [-1, 2] on the same step.
+        ext = np.concatenate([values[::-1][:-1], values, values[::-1][1:]])
+        conv = signal.fftconvolve(ext, kernel, mode="same")
+        out: FloatArray = conv[n_nodes - 1 : 2 * n_nodes - 1]
+        return out
+
+    total = float(mass.sum())
+    r = smooth(spread(resid)) / total
+    d = smooth(spread(mass)) / total
+    return float(np.trapezoid(np.abs(r), dx=h) / np.trapezoid(d, dx=h))
+
+
+def _fixed_point(loc: FloatArray, resid: FloatArray, mass: FloatArray) -> tuple[float, float, bool]:
+    def gap(s: float) -> float:
+        return _smooth_ece_points(loc, resid, mass, s) - s
+
+    if gap(SIGMA_MIN) <= 0.0:
+        # Calibrated to within the floor: report the value at the floor.
+        return _smooth_ece_points(loc, resid, mass, SIGMA_MIN), SIGMA_MIN, False
+    # smECE_σ <= 1 for every σ (|y - f| <= 1), so gap(1) <= 0 and [floor, 1] brackets.
+    sigma = float(optimize.brentq(gap, SIGMA_MIN, 1.0, xtol=1e-7, rtol=1e-10))
+    return _smooth_ece_points(loc, resid, mass, sigma), sigma, True
+
+
+def smooth_ece(
+    y_true: ArrayLike, y_prob: ArrayLike, *, sigma: float | None = None
+) -> SmoothEce:
+    """Smooth ECE of binary (or top-label) forecasts.
+
+    Parameters
+    ----------
+    y_true : array of shape (n,)
+        Outcomes in {0, 1} (for top-label use: correctness of the argmax).
+    y_prob : array of shape (n,)
+        Forecast probabilities (for top-label use: the confidence).
+    sigma : float, optional
+        A fixed bandwidth in (0, 1]; default: the fixed point smECE_σ = σ.
+
+    Raises
+    ------
+    Undefined
+        ``"no_rows"`` for empty input.
+
+    Examples
+    --------
+    >>> r = smooth_ece([0, 0, 1, 0, 1, 0, 1, 1], [.05, .15, .15, .25, .55, .65, .95, .95])
+    >>> round(r.value, 2)
+    0.11
+    """
+    y, p, _ = check_binary_pair(y_true, y_prob)
+    if y.shape[0] == 0:
+        raise Undefined("no_rows", "there are no rows")
+    mass = np.ones_like(p)
+    return _evaluate(p, y - p, mass, sigma)
+
+
+def _evaluate(
+    loc: FloatArray, resid: FloatArray, mass: FloatArray, sigma: float | None
+) -> SmoothEce:
+    n = float(mass.sum())
+    if sigma is None:
+        value, s, fixed = _fixed_point(loc, resid, mass)
+        return SmoothEce(value, s, fixed, n)
+    if not (math.isfinite(sigma) and 0.0 < sigma <= 1.0):
+        raise ValueError(f"sigma: expected a bandwidth in (0, 1], got {sigma!r}")
+    return SmoothEce(_smooth_ece_points(loc, resid, mass, float(sigma)), float(sigma), False, n)
+
+
+def smooth_ece_from_sketch(sketch: Sketch, *, sigma: float | None = None) -> SmoothEce:
+    """Smooth ECE from a binary sketch, each fine-grid bin as one point at its mean forecast.
+
+    Each bin's rows are moved to the bin's mean ``p`` with their total
+    residual ``Σ(y − p)`` and count, so the bin's mass, mean and residual
+    sum are exact; only the spread of forecasts *within* a bin is lost. The
+    kernel's first-order change cancels about the mean, leaving an error of
+    order ``(width / σ)^2`` per bin. Grid bins are at most 0.02 wide in logit
+    (0.005 in p), so at the usual σ ≈ 0.02–0.1 the sketch value agrees with
+    the row value to about 1e-4 (the tests check 1e-3 on C3).
+    """
+    used = sketch.count > 0
+    if not used.any():
+        raise Undefined("no_rows", "the sketch has no rows")
+    count = sketch.count[used]
+    loc = np.clip(sketch.sum_p[used] / count, 0.0, 1.0)
+    resid = sketch.sum_y[used] - sketch.sum_p[used]
+    return _evaluate(loc, resid, count, sigma)
+
+
+__all__ = ["SIGMA_MIN", "SmoothEce", "smooth_ece", "smooth_ece_from_sketch"]

@@ -1,0 +1,138 @@
+"""A real ``plumbwatch serve`` process for tests and benchmarks that need one.
+
+The CLI is driven exactly as an operator would: ``plumbwatch migrate``, then
+``plumbwatch token create`` (the token is the last line of stdout), then
+``plumbwatch serve`` on a free port. Every wait is bounded, and :func:`served`
+kills the process on the way out whatever happened.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import httpx
+
+_SCRIPT = Path(sys.executable).with_name("plumbwatch")
+
+
+def command() -> list[str]:
+    """The ``plumbwatch`` console script of this interpreter's environment."""
+    if _SCRIPT.exists():
+        return [str(_SCRIPT)]
+    return [sys.executable, "-m", "plumbwatch.cli.main"]
+
+
+def environment(database_url: str, **extra: str) -> dict[str, str]:
+    env = {k: v for k, v in os.environ.items() if not k.startswith("PLUMBWATCH_")}
+    env.update(PLUMBWATCH_DATABASE_URL=database_url, PLUMBWATCH_SCHEDULER="off", **extra)
+    return env
+
+
+def run_cli(database_url: str, *args: str, timeout: float = 60) -> str:
+    done = subprocess.run(
+        [*command(), *args],
+        env=environment(database_url),
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+        check=False,
+    )
+    if done.returncode != 0:
+        raise RuntimeError(f"plumbwatch {' '.join(args)} failed: {done.stderr or done.stdout}")
+    return done.stdout
+
+
+def migrate_and_token(database_url: str, *, name: str = "live-admin") -> str:
+    """Migrate the database and return a new admin token."""
+    run_cli(database_url, "migrate")
+    out = run_cli(database_url, "token", "create", "--scope", "admin", "--name", name)
+    return out.strip().splitlines()[-1]
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+@dataclass
+class Server:
+    process: subprocess.Popen[bytes]
+    url: str
+    log: Path
+
+    @property
+    def pid(self) -> int:
+        return self.process.pid
+
+    def log_text(self) -> str:
+        return self.log.read_text(errors="replace") if self.log.exists() else ""
+
+    def kill(self) -> None:
+        """SIGKILL, as a crash would: no shutdown handler runs."""
+        if self.process.poll() is None:
+            self.process.send_signal(signal.SIGKILL)
+        self.process.wait(timeout=10)
+
+
+def start(
+    database_url: str,
+    log: Path,
+    *,
+    extra_args: Sequence[str] = (),
+    env: dict[str, str] | None = None,
+    ready_timeout: float = 30,
+) -> Server:
+    port = free_port()
+    handle = log.open("ab")
+    process = subprocess.Popen(
+        [*command(), "serve", "--port", str(port), *extra_args],
+        env={**environment(database_url), **(env or {})},
+        stdout=handle,
+        stderr=subprocess.STDOUT,
+    )
+    handle.close()
+    server = Server(process, f"http://127.0.0.1:{port}", log)
+    deadline = time.monotonic() + ready_timeout
+    while True:
+        if process.poll() is not None:
+            raise RuntimeError(f"server exited with {process.returncode}:\n{server.log_text()}")
+        try:
+            if httpx.get(f"{server.url}/healthz", timeout=1).status_code == 200:
+                return server
+        except httpx.TransportError:
+            pass
+        if time.monotonic() > deadline:
+            server.kill()
+            raise RuntimeError(f"server not ready after {ready_timeout} s:\n{server.log_text()}")
+        time.sleep(0.05)
+
+
+@contextmanager
+def served(database_url: str, log: Path, **kwargs: Any) -> Iterator[Server]:
+    server = start(database_url, log, **kwargs)
+    try:
+        yield server
+    finally:
+        server.kill()
+
+
+def declare_binary_model(url: str, token: str, name: str, **fields: Any) -> None:
+    body = {"kind": "binary", "label_horizon": "P5D", "segment_keys": ["region"], **fields}
+    r = httpx.put(
+        f"{url}/v1/models/{name}",
+        json=body,
+        headers={"Authorization": f"Bearer {token}"},
+        timeout=30,
+    )
+    r.raise_for_status()

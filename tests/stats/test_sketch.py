@@ -1,0 +1,148 @@
+"""Sketch construction, algebra and serialisation."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from plumbwatch.stats import grid
+from plumbwatch.stats.sketch import FIELDS, Sketch
+
+
+def rows(min_size: int = 0, max_size: int = 60) -> st.SearchStrategy[tuple[list[int], list[float]]]:
+    probs = st.one_of(st.floats(0.0, 1.0), st.sampled_from([0.0, 1.0, 0.3, 0.9, 1e-7]))
+    return st.integers(min_size, max_size).flatmap(
+        lambda n: st.tuples(
+            st.lists(st.integers(0, 1), min_size=n, max_size=n),
+            st.lists(probs, min_size=n, max_size=n),
+        )
+    )
+
+
+def sk(r: tuple[list[int], list[float]]) -> Sketch:
+    return Sketch.from_arrays(np.array(r[0], dtype=np.int64), np.array(r[1], dtype=np.float64))
+
+
+def test_fields_and_totals(simulate) -> None:  # type: ignore[no-untyped-def]
+    y, p = simulate(1000, 3)
+    s = Sketch.from_arrays(y, p)
+    assert s.n == 1000 and s.events == y.sum() and not s.is_empty
+    assert Sketch.empty().is_empty and Sketch.empty().n == 0
+    pc = np.clip(p, np.finfo(float).eps, 1 - np.finfo(float).eps)
+    assert s.total("sum_log_loss") == pytest.approx(
+        -np.sum(y * np.log(pc) + (1 - y) * np.log(1 - pc)), rel=1e-12
+    )
+    assert s.total("sum_spiegelhalter_var") == pytest.approx(
+        np.sum((1 - 2 * p) ** 2 * p * (1 - p)), rel=1e-12
+    )
+    assert s.total("sum_logit") == pytest.approx(grid.clipped_logit(p).sum(), rel=1e-12)
+    for name in FIELDS:
+        assert getattr(s, name).shape == (grid.N_BINS,)
+
+
+def test_sketch_logit_sums_are_bitwise_those_of_clipped_logit(simulate) -> None:  # type: ignore[no-untyped-def]
+    _, p = simulate(2000, 4, sd=6.0)
+    p = np.concatenate([p, [0.0, 1.0, 1e-9, 1 - 1e-9, 1e-6, 1 - 1e-6]])
+    for x in p:
+        s = Sketch.from_arrays([0], [x])
+        assert s.sum_logit[grid.bin_index([x])[0]] == grid.clipped_logit(np.array([x]))[0]
+
+
+def test_falsified_counts() -> None:
+    s = Sketch.from_arrays([1, 0, 1, 0, 1], [0.0, 1.0, 1.0, 0.0, 0.5])
+    assert s.total("falsified") == 2
+
+
+def test_weights_equal_repetition(simulate) -> None:  # type: ignore[no-untyped-def]
+    y, p = simulate(300, 5)
+    w = np.random.default_rng(5).integers(0, 4, 300)
+    a = Sketch.from_arrays(y, p, sample_weight=w)
+    b = Sketch.from_arrays(np.repeat(y, w), np.repeat(p, w))
+    assert a.allclose(b, rtol=1e-12)
+
+
+def test_grouped_equals_separate(simulate) -> None:  # type: ignore[no-untyped-def]
+    y, p = simulate(5000, 6)
+    g = np.random.default_rng(6).integers(0, 7, 5000)
+    many = Sketch.from_arrays_grouped(y, p, g, 7)
+    for k in range(7):
+        assert many[k].allclose(Sketch.from_arrays(y[g == k], p[g == k]), rtol=1e-12)
+    assert Sketch.sum(many).allclose(Sketch.from_arrays(y, p), rtol=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("y", "p", "match"),
+    [
+        ([0, 1], [0.5], "same length"),
+        ([0, 2], [0.5, 0.5], "y_true"),
+        ([0, 1], [0.5, np.nan], "y_prob"),
+        ([0, 1], [0.5, 1.5], "y_prob"),
+        ([[0, 1]], [[0.5, 0.5]], "1-D"),
+    ],
+)
+def test_bad_input(y: object, p: object, match: str) -> None:
+    with pytest.raises(ValueError, match=match):
+        Sketch.from_arrays(y, p)  # type: ignore[arg-type]
+
+
+def test_bad_groups() -> None:
+    with pytest.raises(ValueError, match="group_ids"):
+        Sketch.from_arrays_grouped([0, 1], [0.1, 0.2], [0, 3], 2)
+
+
+def test_subtract_more_than_held_raises() -> None:
+    a = Sketch.from_arrays([1], [0.2])
+    with pytest.raises(ValueError, match="other"):
+        _ = a - Sketch.from_arrays([1, 1], [0.2, 0.2])
+
+
+def test_serialised_size_beats_raw_rows(simulate) -> None:  # type: ignore[no-untyped-def]
+    # DESIGN.md "Storage": buckets of >= 1,000 rows must be smaller than the raw
+    # rows; a raw prediction row with id, timestamps and outcome is ~100 bytes.
+    for n in (1000, 10_000):
+        y, p = simulate(n, 7)
+        blob = Sketch.from_arrays(y, p).to_bytes()
+        assert len(blob) < 100 * n
+    assert len(Sketch.empty().to_bytes()) < 40
+
+
+def test_from_bytes_rejects_garbage() -> None:
+    with pytest.raises(ValueError, match="version"):
+        Sketch.from_bytes(b"\x07\x00")
+    with pytest.raises(ValueError, match="version"):
+        Sketch.from_bytes(b"")
+
+
+def test_weighted_round_trip(simulate) -> None:  # type: ignore[no-untyped-def]
+    y, p = simulate(100, 8)
+    s = Sketch.from_arrays(y, p, sample_weight=np.linspace(0.1, 2, 100))
+    assert Sketch.from_bytes(s.to_bytes()) == s
+
+
+@settings(deadline=None, max_examples=60)
+@given(rows(), rows(), rows())
+def test_merge_associative_and_commutative(r1, r2, r3) -> None:  # type: ignore[no-untyped-def]
+    a, b, c = sk(r1), sk(r2), sk(r3)
+    assert ((a + b) + c).allclose(a + (b + c), rtol=1e-12)
+    assert (a + b).allclose(b + a, rtol=1e-12)
+    both = (np.array(r1[0] + r2[0], dtype=np.int64), np.array(r1[1] + r2[1]))
+    assert (a + b).allclose(Sketch.from_arrays(*both), rtol=1e-12)
+
+
+@settings(deadline=None, max_examples=60)
+@given(rows(), rows())
+def test_subtract_after_add(r1, r2) -> None:  # type: ignore[no-untyped-def]
+    a, b = sk(r1), sk(r2)
+    back = (a + b) - b
+    assert back.allclose(a, rtol=1e-9, atol=1e-9)
+    assert np.all(back.count >= 0)
+    assert ((a + b) - (a + b)).is_empty
+
+
+@settings(deadline=None, max_examples=60)
+@given(rows())
+def test_bytes_round_trip(r) -> None:  # type: ignore[no-untyped-def]
+    s = sk(r)
+    assert Sketch.from_bytes(s.to_bytes()) == s
