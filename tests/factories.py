@@ -90,6 +90,7 @@ def make_token(engine: Engine, name: str, scope: str, model_id: int | None = Non
 @contextmanager
 def running_service(engine: Engine, **settings: Any) -> Iterator[Service]:
     """The app on a migrated engine, with admin, ingest and read tokens."""
+    settings.setdefault("scheduler", "off")
     config = Settings(database_url=str(engine.url), **settings)
     app = create_app(config, engine=engine, clock_us=lambda: NOW_US)
     secrets = {scope: make_token(engine, f"t-{scope}", scope)

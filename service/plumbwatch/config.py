@@ -64,12 +64,17 @@ class Settings(BaseSettings):
         1e-6, gt=0, lt=0.1, description="multiclass probabilities must sum to 1 within this"
     )
     sqlite_busy_timeout_ms: int = Field(30_000, ge=0)
-    scheduler: str = Field("on", pattern="^(on|off)$")
+    scheduler: str = Field("on", pattern="^(on|off)$", description="in-process evaluation")
+    evaluation_interval: str = Field("PT5M", description="how often the scheduler evaluates")
+    slice_cap: int = Field(50, ge=1, description="values kept per segment key; rest: other")
+    min_events: int = Field(
+        100, ge=1, description="events and non-events a slice needs for a verdict"
+    )
     models: dict[str, dict[str, Any]] = Field(
         default_factory=dict, description="model declarations from the TOML file"
     )
 
-    @field_validator("future_tolerance")
+    @field_validator("future_tolerance", "evaluation_interval")
     @classmethod
     def _duration(cls, value: str) -> str:
         parse_duration(value)
@@ -86,6 +91,10 @@ class Settings(BaseSettings):
     ) -> tuple[PydanticBaseSettingsSource, ...]:
         path = init_settings().get("config") or os.environ.get("PLUMBWATCH_CONFIG")
         return (init_settings, env_settings, _TomlSource(settings_cls, path))
+
+    @property
+    def evaluation_interval_seconds(self) -> float:
+        return parse_duration(self.evaluation_interval).total_seconds()
 
     @property
     def future_tolerance_micros(self) -> int:

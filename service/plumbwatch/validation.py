@@ -10,12 +10,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import orjson
 
 from plumbwatch.errors import Detail, InvalidInput
-from plumbwatch.timefmt import parse_instant, to_micros
+from plumbwatch.timefmt import _RFC3339, parse_instant, to_micros
 
 MAX_ID_LENGTH = 200
 MAX_SEGMENT_VALUE_LENGTH = 200
@@ -25,6 +26,7 @@ PREDICTION_FIELDS = frozenset(
     {"id", "predicted_at", "probability", "probabilities", "version", "segments"}
 )
 OUTCOME_FIELDS = frozenset({"id", "outcome", "observed_at"})
+_BINARY_FIELDS = PREDICTION_FIELDS - {"probabilities"}
 
 
 @dataclass(frozen=True, slots=True)
@@ -121,6 +123,102 @@ def _probability(value: Any) -> float | None:
     return p + 0.0  # -0.0 -> 0.0, so equal values store equal text
 
 
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+_MICROSECOND = timedelta(microseconds=1)
+
+
+def _fast_instant(value: Any) -> int | None:
+    """Microseconds of a plainly well-formed RFC 3339 text, or None to take the slow path.
+
+    Accepts only what :func:`_instant` accepts, with the same value: anything
+    unusual (no match, more than 6 fraction digits, years at the edge of the
+    calendar where the conversion to UTC can overflow) goes the slow way, which
+    also words the error.
+    """
+    if type(value) is not str:
+        return None
+    match = _RFC3339.match(value)
+    if match is None or len(match.group("frac") or "") > 7:
+        return None
+    text = value[:-1] + "+00:00" if value[-1] in "zZ" else value
+    try:
+        parsed = datetime.fromisoformat(text)
+    except ValueError:
+        return None
+    if parsed.year in (1, 9999):
+        return None
+    return (parsed - _EPOCH) // _MICROSECOND
+
+
+class _SegmentCache:
+    """Canonical JSON of segment maps already seen in this batch (few distinct maps)."""
+
+    def __init__(self, keys: frozenset[str]) -> None:
+        self._keys = keys
+        self._known: dict[tuple[tuple[Any, Any], ...], str | None] = {}
+
+    def get(self, value: dict[Any, Any]) -> tuple[bool, str | None]:
+        """(True, canonical) for a valid map; (False, None) to take the slow path."""
+        try:
+            items = tuple(value.items())
+            return True, self._known[items]
+        except KeyError:
+            pass
+        except TypeError:  # an unhashable value: certainly invalid, say why the slow way
+            return False, None
+        clean = {}
+        for key, v in items:
+            if key not in self._keys:
+                return False, None
+            if v is None:
+                continue
+            if type(v) is not str or not v or len(v) > MAX_SEGMENT_VALUE_LENGTH:
+                return False, None
+            clean[key] = v
+        canonical = orjson.dumps(clean, option=orjson.OPT_SORT_KEYS).decode() if clean else None
+        self._known[items] = canonical
+        return True, canonical
+
+
+def _fast_binary_prediction(
+    i: int, item: Any, latest_us: int, segments: _SegmentCache
+) -> PredictionRow | None:
+    """The row, if it is a plainly valid binary prediction; None to take the slow path.
+
+    Most rows of real batches are valid, so this path checks them with as few
+    calls as possible; any doubt goes to the full checks, which word the errors.
+    """
+    if type(item) is not dict or not item.keys() <= _BINARY_FIELDS:
+        return None
+    client_id = item.get("id")
+    if type(client_id) is not str or not 0 < len(client_id) <= MAX_ID_LENGTH:
+        return None
+    p = item.get("probability")
+    if type(p) is float:
+        if not 0.0 <= p <= 1.0:
+            return None
+        p += 0.0  # -0.0 -> 0.0
+    elif type(p) is int and 0 <= p <= 1:
+        p = float(p)
+    else:
+        return None
+    version = item.get("version", DEFAULT_VERSION)
+    if type(version) is not str or not 0 < len(version) <= MAX_VERSION_LENGTH:
+        return None
+    micros = _fast_instant(item.get("predicted_at"))
+    if micros is None or micros > latest_us:
+        return None
+    seg = item.get("segments")
+    canonical = None
+    if seg is not None:
+        if type(seg) is not dict:
+            return None
+        ok, canonical = segments.get(seg)
+        if not ok:
+            return None
+    return PredictionRow(i, client_id, micros, p, None, version, canonical)
+
+
 def validate_predictions(
     body: Any, shape: ModelShape, *, now_us: int, future_tolerance_us: int, sum_tolerance: float
 ) -> tuple[list[PredictionRow], int]:
@@ -132,57 +230,71 @@ def validate_predictions(
     problems = _Problems()
     latest_us = now_us + future_tolerance_us
     binary = shape.kind == "binary"
-    classes = shape.classes
+    segment_cache = _SegmentCache(shape.segment_keys)
     out: list[PredictionRow] = []
     seen: dict[str, tuple[int, PredictionRow]] = {}
     repeats = 0
     for i, item in enumerate(raw):
-        if not isinstance(item, dict):
-            problems.add(i, "", "each row must be a JSON object")
-            continue
-        before = len(problems.details)
-        extra = item.keys() - PREDICTION_FIELDS
-        for field in sorted(extra):
-            problems.add(i, field, "unknown field")
-        client_id = _client_id(problems, i, item.get("id"))
-        predicted_at = _instant(problems, i, "predicted_at", item.get("predicted_at"), latest_us)
-        probability: float | None = None
-        probabilities: str | None = None
-        if binary:
-            if "probabilities" in item:
-                problems.add(i, "probabilities", "binary model: send 'probability' instead")
-            probability = _probability(item.get("probability"))
-            if probability is None:
-                problems.add(i, "probability", "required: a finite number within [0, 1]")
-        else:
-            if "probability" in item:
-                problems.add(i, "probability", "multiclass model: send 'probabilities' instead")
-            probabilities = _class_probabilities(
-                problems, i, item.get("probabilities"), classes, sum_tolerance
-            )
-        version = item.get("version", DEFAULT_VERSION)
-        if not isinstance(version, str) or not version or len(version) > MAX_VERSION_LENGTH:
-            problems.add(
-                i, "version", f"a non-empty string of at most {MAX_VERSION_LENGTH} characters"
-            )
-        segments = _segments(problems, i, item.get("segments"), shape.segment_keys)
-        if len(problems.details) != before:
-            continue
-        assert client_id is not None and predicted_at is not None
-        row = PredictionRow(
-            i, client_id, predicted_at, probability, probabilities, version, segments
-        )
-        previous = seen.get(client_id)
+        row = _fast_binary_prediction(i, item, latest_us, segment_cache) if binary else None
+        if row is None:
+            row = _checked_prediction(problems, i, item, shape, latest_us, sum_tolerance)
+            if row is None:
+                continue
+        previous = seen.get(row.client_id)
         if previous is not None:
             if not previous[1].same_content(row):
                 problems.add(i, "id", f"repeats the id of row {previous[0]} with different content")
             repeats += 1
             continue
-        seen[client_id] = (i, row)
+        seen[row.client_id] = (i, row)
         out.append(row)
     if problems.details:
         raise InvalidInput(_summary(problems, len(raw)), problems.details)
     return out, repeats
+
+
+def _checked_prediction(
+    problems: _Problems,
+    i: int,
+    item: Any,
+    shape: ModelShape,
+    latest_us: int,
+    sum_tolerance: float,
+) -> PredictionRow | None:
+    """Every check on one row, each problem recorded; the row, or None if any failed."""
+    if not isinstance(item, dict):
+        problems.add(i, "", "each row must be a JSON object")
+        return None
+    before = len(problems.details)
+    extra = item.keys() - PREDICTION_FIELDS
+    for field in sorted(extra):
+        problems.add(i, field, "unknown field")
+    client_id = _client_id(problems, i, item.get("id"))
+    predicted_at = _instant(problems, i, "predicted_at", item.get("predicted_at"), latest_us)
+    probability: float | None = None
+    probabilities: str | None = None
+    if shape.kind == "binary":
+        if "probabilities" in item:
+            problems.add(i, "probabilities", "binary model: send 'probability' instead")
+        probability = _probability(item.get("probability"))
+        if probability is None:
+            problems.add(i, "probability", "required: a finite number within [0, 1]")
+    else:
+        if "probability" in item:
+            problems.add(i, "probability", "multiclass model: send 'probabilities' instead")
+        probabilities = _class_probabilities(
+            problems, i, item.get("probabilities"), shape.classes, sum_tolerance
+        )
+    version = item.get("version", DEFAULT_VERSION)
+    if not isinstance(version, str) or not version or len(version) > MAX_VERSION_LENGTH:
+        problems.add(
+            i, "version", f"a non-empty string of at most {MAX_VERSION_LENGTH} characters"
+        )
+    segments = _segments(problems, i, item.get("segments"), shape.segment_keys)
+    if len(problems.details) != before:
+        return None
+    assert client_id is not None and predicted_at is not None
+    return PredictionRow(i, client_id, predicted_at, probability, probabilities, version, segments)
 
 
 def _class_probabilities(
@@ -274,11 +386,9 @@ def validate_outcomes(
         else:
             problems.add(i, "outcome", f"required: one of the classes {list(shape.classes)}")
         observed = item.get("observed_at")
-        observed_at = (
-            now_us
-            if observed is None
-            else _instant(problems, i, "observed_at", observed, latest_us)
-        )
+        observed_at = now_us if observed is None else _fast_instant(observed)
+        if observed_at is None or observed_at > latest_us:
+            observed_at = _instant(problems, i, "observed_at", observed, latest_us)
         if len(problems.details) != before:
             continue
         assert client_id is not None and outcome is not None and observed_at is not None

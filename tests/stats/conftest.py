@@ -2,23 +2,11 @@
 
 from __future__ import annotations
 
-import os
-import tempfile
 from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import settings
-
-# Hypothesis would create .hypothesis/ in the repository root, and the root
-# pytest configuration (norecursedirs replaces the defaults) turns collecting
-# near it into a warning, i.e. an error. Keep its files in the temp directory.
-os.environ.setdefault(
-    "HYPOTHESIS_STORAGE_DIRECTORY", str(Path(tempfile.gettempdir()) / "plumbwatch-hypothesis")
-)
-settings.register_profile("plumbwatch-stats", database=None, deadline=None)
-settings.load_profile("plumbwatch-stats")
 
 DATA = Path(__file__).resolve().parent.parent / "data"
 

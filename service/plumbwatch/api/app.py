@@ -11,8 +11,11 @@ from sqlalchemy.engine import Engine
 
 from plumbwatch import __version__
 from plumbwatch.api import errors
-from plumbwatch.api.routes import health, models, outcomes, predictions
+from plumbwatch.api.routes import evaluations, health, models, outcomes, predictions
 from plumbwatch.config import Settings
+from plumbwatch.evaluate.run import Options
+from plumbwatch.jobs.schedule import start_scheduler
+from plumbwatch.jobs.tick import Evaluator, holder_name
 from plumbwatch.store.engine import create_engine
 from plumbwatch.store.migrate import require_current
 from plumbwatch.store.models import apply_declarations
@@ -40,9 +43,12 @@ def create_app(
         require_current(engine)
         apply_declarations(engine, settings.models, now_us=clock_us())
         app.state.writer.start()
+        scheduler = start_scheduler(app.state.evaluator, settings, clock_us)
         try:
             yield
         finally:
+            if scheduler is not None:
+                scheduler.shutdown(wait=True)
             app.state.writer.stop()
 
     app = FastAPI(
@@ -55,7 +61,12 @@ def create_app(
     app.state.engine = engine
     app.state.clock_us = clock_us
     app.state.writer = GroupWriter(engine)
+    app.state.evaluator = Evaluator(
+        engine,
+        holder_name(),
+        Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
+    )
     errors.install(app)
-    for module in (health, models, predictions, outcomes):
+    for module in (health, models, predictions, outcomes, evaluations):
         app.include_router(module.router)
     return app

@@ -150,3 +150,8 @@ def body(schema: dict[str, Any]) -> dict[str, Any]:
 def errors(*statuses: int) -> dict[int | str, dict[str, Any]]:
     """Document error responses with the shared error body."""
     return {s: {"model": ErrorRead} for s in statuses}
+
+
+class EvaluationCreate(BaseModel):
+    as_of: str | None = None
+    notify: bool = True

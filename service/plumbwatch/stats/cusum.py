@@ -206,9 +206,7 @@ def cusum_threshold_by_simulation(
         raise ValueError(f"r_a: expected a positive odds ratio other than 1, got {r_a!r}")
     n_sims = check_positive_int(n_sims, "n_sims", 2)
     n_grid = check_positive_int(n_grid, "n_grid", 2)
-    cap = math.ceil(20 * target_arl0) if max_run is None else check_positive_int(
-        max_run, "max_run"
-    )
+    cap = math.ceil(20 * target_arl0) if max_run is None else check_positive_int(max_run, "max_run")
     hs = np.linspace(0.0, math.log(target_arl0), n_grid + 1)[1:]
     rng = np.random.default_rng(seed)
     first = np.full((n_sims, n_grid), cap, dtype=np.int64)  # run length per (run, h)

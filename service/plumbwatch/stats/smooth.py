@@ -98,9 +98,7 @@ def _fixed_point(loc: FloatArray, resid: FloatArray, mass: FloatArray) -> tuple[
     return _smooth_ece_points(loc, resid, mass, sigma), sigma, True
 
 
-def smooth_ece(
-    y_true: ArrayLike, y_prob: ArrayLike, *, sigma: float | None = None
-) -> SmoothEce:
+def smooth_ece(y_true: ArrayLike, y_prob: ArrayLike, *, sigma: float | None = None) -> SmoothEce:
     """Smooth ECE of binary (or top-label) forecasts.
 
     Parameters

@@ -15,10 +15,36 @@ import sqlalchemy as sa
 
 from plumbwatch.errors import Conflict, Detail
 from plumbwatch.store import keys
-from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
+from plumbwatch.store.tables import (
+    outcome_revisions,
+    outcomes,
+    predictions,
+    row_keys,
+    row_keys_recent,
+)
 from plumbwatch.validation import OutcomeRow, PredictionRow
 
-_FETCH_CHUNK = 500
+_PREDICTION_COLUMNS = (
+    "id",
+    "model_id",
+    "client_id",
+    "predicted_at_us",
+    "probability",
+    "probabilities",
+    "version",
+    "segments",
+    "received_at_us",
+)
+_OUTCOME_COLUMNS = (
+    "id",
+    "model_id",
+    "client_id",
+    "prediction_id",
+    "outcome",
+    "observed_at_us",
+    "received_at_us",
+    "revision",
+)
 
 
 @dataclass(frozen=True)
@@ -35,39 +61,37 @@ class OutcomesWritten:
     awaiting_prediction: int
 
 
-def _fetch(
-    conn: sa.Connection,
-    table: sa.Table,
-    columns: Sequence[sa.ColumnElement[Any]],
-    ids: Sequence[int],
-) -> dict[int, sa.Row[Any]]:
-    out: dict[int, sa.Row[Any]] = {}
-    unique = sorted(set(ids))
-    for start in range(0, len(unique), _FETCH_CHUNK):
-        chunk = unique[start : start + _FETCH_CHUNK]
-        for row in conn.execute(sa.select(table.c.id, *columns).where(table.c.id.in_(chunk))):
-            out[row.id] = row
-    return out
-
-
 def _existing(
     conn: sa.Connection,
     table: sa.Table,
-    columns: Sequence[sa.ColumnElement[Any]],
+    columns: Sequence[str],
     *,
     model_id: int,
     kind: str,
     client_ids: Sequence[str],
     hashes: Sequence[int],
 ) -> dict[str, sa.Row[Any]]:
-    """Stored rows of this model whose client id is among client_ids."""
-    hits = keys.lookup(conn, model_id=model_id, kind=kind, hashes=hashes)
-    if not hits:
-        return {}
-    candidates = [rid for rids in hits.values() for rid in rids]
-    rows = _fetch(conn, table, [table.c.client_id, *columns], candidates)
+    """Stored rows of this model whose client id is among client_ids.
+
+    One statement per chunk joins both key tiers to the table (one snapshot), sent
+    as plain SQL: ingest runs it for every batch, and statement compilation with
+    thousands of bound values cost more than the lookup itself.
+    """
+    mark = keys.placeholder(conn)
+    select = ", ".join(f"t.{c}" for c in ("id", "client_id", *columns))
+    found: dict[str, sa.Row[Any]] = {}
     wanted = set(client_ids)
-    return {r.client_id: r for r in rows.values() if r.client_id in wanted}
+    for chunk in keys.chunked(sorted(set(hashes)), conn):
+        where, params = keys.hash_filter(conn, chunk)
+        sql = " UNION ALL ".join(
+            f"SELECT {select} FROM {tier.name} k JOIN {table.name} t ON t.id = k.row_id "
+            f"WHERE k.model_id = {mark} AND k.kind = {mark} AND k.{where}"
+            for tier in (row_keys, row_keys_recent)
+        )
+        for row in conn.exec_driver_sql(sql, (model_id, kind, *params, model_id, kind, *params)):
+            if row.client_id in wanted:
+                found[row.client_id] = row
+    return found
 
 
 def write_predictions(
@@ -75,11 +99,10 @@ def write_predictions(
 ) -> PredictionsWritten:
     keys.lock_model(conn, model_id)
     hashes = [keys.id_hash(r.client_id) for r in rows]
-    p = predictions.c
     stored = _existing(
         conn,
         predictions,
-        [p.predicted_at_us, p.probability, p.probabilities, p.version, p.segments],
+        ["predicted_at_us", "probability", "probabilities", "version", "segments"],
         model_id=model_id,
         kind="p",
         client_ids=[r.client_id for r in rows],
@@ -115,20 +138,22 @@ def write_predictions(
         )
     ids = keys.allocate_ids(conn, predictions, len(new))
     if new:
-        conn.execute(
-            sa.insert(predictions),
+        keys.insert_rows(
+            conn,
+            predictions.name,
+            _PREDICTION_COLUMNS,
             [
-                {
-                    "id": rid,
-                    "model_id": model_id,
-                    "client_id": r.client_id,
-                    "predicted_at_us": r.predicted_at_us,
-                    "probability": r.probability,
-                    "probabilities": r.probabilities,
-                    "version": r.version,
-                    "segments": r.segments,
-                    "received_at_us": now_us,
-                }
+                (
+                    rid,
+                    model_id,
+                    r.client_id,
+                    r.predicted_at_us,
+                    r.probability,
+                    r.probabilities,
+                    r.version,
+                    r.segments,
+                    now_us,
+                )
                 for rid, (r, _) in zip(ids, new, strict=True)
             ],
         )
@@ -153,7 +178,7 @@ def _link_waiting_outcomes(
     waiting = _existing(
         conn,
         outcomes,
-        [outcomes.c.prediction_id],
+        ["prediction_id"],
         model_id=model_id,
         kind="o",
         client_ids=[c for c, _, _ in new],
@@ -186,11 +211,10 @@ def write_outcomes(
     keys.lock_model(conn, model_id)
     hashes = [keys.id_hash(r.client_id) for r in rows]
     client_ids = [r.client_id for r in rows]
-    o = outcomes.c
     stored = _existing(
         conn,
         outcomes,
-        [o.outcome, o.observed_at_us, o.received_at_us, o.prediction_id, o.revision],
+        ["outcome", "observed_at_us", "received_at_us", "prediction_id", "revision"],
         model_id=model_id,
         kind="o",
         client_ids=client_ids,
@@ -244,18 +268,18 @@ def write_outcomes(
             if pred is None:
                 awaiting += 1
             params.append(
-                {
-                    "id": rid,
-                    "model_id": model_id,
-                    "client_id": r.client_id,
-                    "prediction_id": pred.id if pred is not None else None,
-                    "outcome": r.outcome,
-                    "observed_at_us": r.observed_at_us,
-                    "received_at_us": now_us,
-                    "revision": 0,
-                }
+                (
+                    rid,
+                    model_id,
+                    r.client_id,
+                    pred.id if pred is not None else None,
+                    r.outcome,
+                    r.observed_at_us,
+                    now_us,
+                    0,
+                )
             )
-        conn.execute(sa.insert(outcomes), params)
+        keys.insert_rows(conn, outcomes.name, _OUTCOME_COLUMNS, params)
         keys.add(
             conn,
             model_id=model_id,

@@ -18,13 +18,14 @@ from __future__ import annotations
 
 import hashlib
 from collections import defaultdict
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
+from typing import Any
 
 import sqlalchemy as sa
 
 from plumbwatch.store.tables import row_keys, row_keys_recent
 
-_LOOKUP_CHUNK = 500
+LOOKUP_CHUNK = 2_000
 _LOCK_NAMESPACE = 0x706C  # first key of pg_advisory_xact_lock(ns, model_id)
 
 
@@ -43,33 +44,74 @@ def lock_model(conn: sa.Connection, model_id: int) -> None:
         )
 
 
+def placeholder(conn: sa.Connection) -> str:
+    """The DBAPI parameter marker, for statements sent through ``exec_driver_sql``."""
+    return "?" if conn.dialect.name == "sqlite" else "%s"
+
+
+def hash_filter(conn: sa.Connection, hashes: Sequence[int]) -> tuple[str, list[Any]]:
+    """SQL matching ``id_hash`` against hashes, with its parameters.
+
+    Ingest runs this for every row, so it bypasses statement compilation: one
+    array parameter on PostgreSQL, plain markers on SQLite (callers chunk).
+    """
+    if conn.dialect.name == "postgresql":
+        return "id_hash = ANY(%s::bigint[])", [list(hashes)]
+    return f"id_hash IN ({','.join('?' * len(hashes))})", list(hashes)
+
+
+def chunked(values: Sequence[int], conn: sa.Connection) -> Iterator[Sequence[int]]:
+    # SQLite allows 32,766 parameters per statement; PostgreSQL takes one array.
+    size = LOOKUP_CHUNK if conn.dialect.name == "sqlite" else max(len(values), 1)
+    for start in range(0, len(values), size):
+        yield values[start : start + size]
+
+
 def lookup(
     conn: sa.Connection, *, model_id: int, kind: str, hashes: Sequence[int]
 ) -> dict[int, list[int]]:
     """Row ids stored under each hash, from both tiers (one statement, one snapshot)."""
     found: dict[int, list[int]] = defaultdict(list)
-    unique = sorted(set(hashes))
-    for start in range(0, len(unique), _LOOKUP_CHUNK):
-        chunk = unique[start : start + _LOOKUP_CHUNK]
-        parts = [
-            sa.select(table.c.id_hash, table.c.row_id).where(
-                table.c.model_id == model_id, table.c.kind == kind, table.c.id_hash.in_(chunk)
-            )
-            for table in (row_keys, row_keys_recent)
-        ]
-        for h, row_id in conn.execute(sa.union_all(*parts)):
+    mark = placeholder(conn)
+    for chunk in chunked(sorted(set(hashes)), conn):
+        where, params = hash_filter(conn, chunk)
+        sql = " UNION ALL ".join(
+            f"SELECT id_hash, row_id FROM {table} WHERE model_id = {mark} AND kind = {mark} "
+            f"AND {where}"
+            for table in (row_keys.name, row_keys_recent.name)
+        )
+        args = (model_id, kind, *params, model_id, kind, *params)
+        for h, row_id in conn.exec_driver_sql(sql, args):
             found[h].append(row_id)
     return found
 
 
 def add(conn: sa.Connection, *, model_id: int, kind: str, pairs: Iterable[tuple[int, int]]) -> int:
     """Record (hash, row id) pairs in the recent tier; returns how many."""
-    params = [
-        {"model_id": model_id, "kind": kind, "id_hash": h, "row_id": row_id} for h, row_id in pairs
-    ]
-    if params:
-        conn.execute(sa.insert(row_keys_recent), params)
-    return len(params)
+    rows = sorted((model_id, kind, h, row_id) for h, row_id in pairs)  # key order: fewer pages
+    if rows:
+        insert_rows(conn, row_keys_recent.name, ("model_id", "kind", "id_hash", "row_id"), rows)
+    return len(rows)
+
+
+def insert_rows(
+    conn: sa.Connection, table: str, columns: Sequence[str], rows: Sequence[tuple[Any, ...]]
+) -> None:
+    """Bulk insert plain tuples inside the caller's transaction, at driver speed.
+
+    PostgreSQL: COPY on the same connection (so the same transaction and
+    savepoint). SQLite: one ``executemany``.
+    """
+    names = ", ".join(columns)
+    if conn.dialect.name == "postgresql":
+        cursor = conn.connection.driver_connection.cursor()  # type: ignore[union-attr]
+        with cursor.copy(f"COPY {table} ({names}) FROM STDIN") as copy:
+            for row in rows:
+                copy.write_row(row)
+        cursor.close()
+        return
+    marks = ", ".join("?" * len(columns))
+    conn.exec_driver_sql(f"INSERT INTO {table} ({names}) VALUES ({marks})", list(rows))
 
 
 def recent_count(conn: sa.Connection) -> int:

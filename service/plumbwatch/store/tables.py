@@ -115,3 +115,69 @@ api_tokens = sa.Table(
     sa.Column("revoked_at_us", sa.BigInteger, nullable=True),
     sa.CheckConstraint("scope IN ('admin', 'ingest', 'read')", name="scope"),
 )
+
+# -- evaluation (derived state; rebuildable from the raw rows above) -----------------
+
+# Per (model, version, cohort day, slice): the stats.Sketch of matured, labelled rows,
+# plus the counts that do not enter a sketch. `day` is the UTC day of predicted_at
+# (days since the epoch).
+sketches = sa.Table(
+    "sketches",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("version", sa.String(64), primary_key=True),
+    sa.Column("day", sa.Integer, primary_key=True),
+    sa.Column("slice", sa.String(600), primary_key=True),
+    sa.Column("matured", sa.BigInteger, nullable=False),  # rows past their horizon
+    sa.Column("late", sa.BigInteger, nullable=False),  # outcome observed after the horizon
+    sa.Column("unlabelled", sa.BigInteger, nullable=False),  # no outcome by maturity
+    sa.Column("data", sa.LargeBinary, nullable=False),  # Sketch.to_bytes()
+    sa.Column("updated_at_us", sa.BigInteger, nullable=False),
+)
+
+# One row per model: how far the incremental evaluation has got.
+evaluation_cursors = sa.Table(
+    "evaluation_cursors",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("as_of_us", sa.BigInteger, nullable=False),  # the last as_of applied
+    # Rows up to these ids have been applied. Ids are handed out inside each model's
+    # write lock, so a row committed later always has a larger id (see store/keys.py).
+    sa.Column("prediction_seq", sa.BigInteger, nullable=False),
+    sa.Column("outcome_seq", sa.BigInteger, nullable=False),
+    sa.Column("revision_seq", sa.BigInteger, nullable=False),
+    sa.Column("updated_at_us", sa.BigInteger, nullable=False),
+)
+
+# The kept values of each segment key, in order of first appearance (the cap keeps the
+# first N; later values fold into `other`).
+slice_values = sa.Table(
+    "slice_values",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("key", sa.String(64), primary_key=True),
+    sa.Column("value", sa.String(200), primary_key=True),
+    sa.Column("position", sa.Integer, nullable=False),
+)
+
+evaluations = sa.Table(
+    "evaluations",
+    metadata,
+    sa.Column("id", RowId, primary_key=True),
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), nullable=False),
+    sa.Column("as_of_us", sa.BigInteger, nullable=False),
+    sa.Column("evaluated_at_us", sa.BigInteger, nullable=False),
+    sa.Column("health", sa.String(32), nullable=False),
+    sa.Column("record", sa.Text, nullable=False),  # the status JSON of this run
+    sa.Index(None, "model_id", "as_of_us"),
+)
+
+leases = sa.Table(
+    "leases",
+    metadata,
+    sa.Column("name", sa.String(200), primary_key=True),
+    sa.Column("holder", sa.String(200), nullable=False),
+    sa.Column("expires_at_us", sa.BigInteger, nullable=False),
+)
+
+sa.Index("ix_outcomes_prediction_id", outcomes.c.prediction_id)

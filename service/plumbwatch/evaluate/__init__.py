@@ -1,0 +1,1 @@
+"""Evaluation: cohorts, maturity, windows, slices, and one evaluation run."""

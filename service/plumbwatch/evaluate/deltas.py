@@ -1,0 +1,260 @@
+"""What changed since the last run, as row deltas on (version, day, slice) buckets.
+
+Ids are handed out inside each model's write lock, so a cursor of three ids
+(predictions, outcomes, outcome revisions) splits all rows into "applied" and
+"new", and one read snapshot gives both the new ids and the values they had.
+A run applies:
+
+1. predictions that matured since the last run (``f0 < predicted_at <= f1``);
+2. predictions received since the last run that had already matured (backfills);
+3. outcomes received, and outcomes corrected, since the last run, for predictions
+   applied earlier: remove the row's previous contribution, add the new one.
+
+So the work is proportional to what changed, never to the size of a window.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import orjson
+import sqlalchemy as sa
+
+from plumbwatch.evaluate.cohorts import RowState, classify, day_of
+from plumbwatch.evaluate.slices import SliceSpec, ValueCap
+from plumbwatch.stats.sketch import Sketch
+from plumbwatch.store.sketches import Bucket, BucketKey, Cursor
+from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
+
+_NEG_INF = -(2**62)
+_CHUNK = 50_000
+
+
+@dataclass
+class Deltas:
+    """Row contributions to add and to remove, keyed by bucket."""
+
+    spec: SliceSpec
+    cap: ValueCap
+    keys: dict[BucketKey, int] = field(default_factory=dict)
+    plus: tuple[list[int], list[float], list[int]] = field(default_factory=lambda: ([], [], []))
+    minus: tuple[list[int], list[float], list[int]] = field(default_factory=lambda: ([], [], []))
+    counts: dict[BucketKey, list[int]] = field(default_factory=dict)  # matured, late, unlabelled
+    rows: int = 0
+    _slices: dict[str | None, list[str]] = field(default_factory=dict)
+
+    def _names(self, segments: str | None) -> list[str]:
+        names = self._slices.get(segments)
+        if names is None:
+            names = self.spec.names(orjson.loads(segments) if segments else {}, self.cap)
+            self._slices[segments] = names
+        return names
+
+    def add_row(
+        self,
+        *,
+        version: str,
+        predicted_at_us: int,
+        segments: str | None,
+        p: float,
+        before: RowState | None,
+        after: RowState,
+    ) -> None:
+        """Move one row from ``before`` (None: not applied yet) to ``after``."""
+        self.rows += 1
+        day = day_of(predicted_at_us)
+        for name in self._names(segments):
+            key = (version, day, name)
+            index = self.keys.setdefault(key, len(self.keys))
+            counts = self.counts.setdefault(key, [0, 0, 0])
+            if before is None:
+                counts[0] += 1
+            else:
+                counts[1] -= before.late
+                counts[2] -= before.unlabelled
+                if before.included:
+                    self.minus[0].append(index)
+                    self.minus[1].append(p)
+                    self.minus[2].append(before.y)
+            counts[1] += after.late
+            counts[2] += after.unlabelled
+            if after.included:
+                self.plus[0].append(index)
+                self.plus[1].append(p)
+                self.plus[2].append(after.y)
+
+    def apply_to(self, buckets: dict[BucketKey, Bucket]) -> dict[BucketKey, Bucket]:
+        """The touched buckets after the deltas (``buckets`` holds their stored state)."""
+        n = len(self.keys)
+        if n == 0:
+            return {}
+        adds = _grouped(self.plus, n)
+        subs = _grouped(self.minus, n)
+        out = {}
+        for key, i in self.keys.items():
+            base = buckets.get(key) or Bucket(Sketch.empty())
+            sketch = base.sketch
+            if adds[i] is not None:
+                sketch = sketch + adds[i]
+            if subs[i] is not None:
+                sketch = sketch - subs[i]
+            c = self.counts[key]
+            out[key] = Bucket(sketch, base.matured + c[0], base.late + c[1], base.unlabelled + c[2])
+        return out
+
+
+def _grouped(entries: tuple[list[int], list[float], list[int]], n: int) -> list[Sketch | None]:
+    groups, ps, ys = entries
+    if not groups:
+        return [None] * n
+    g = np.asarray(groups, dtype=np.intp)
+    sketches = Sketch.from_arrays_grouped(
+        np.asarray(ys, dtype=np.float64), np.asarray(ps, dtype=np.float64), g, n
+    )
+    present = np.bincount(g, minlength=n) > 0
+    return [s if present[i] else None for i, s in enumerate(sketches)]
+
+
+def _rows(conn: sa.Connection, query: sa.Select[Any]) -> Iterator[sa.Row[Any]]:
+    yield from conn.execute(query.execution_options(yield_per=_CHUNK))
+
+
+def current_seqs(conn: sa.Connection, *, model_id: int) -> tuple[int, int, int]:
+    """The largest prediction, outcome and revision ids of the model in this snapshot."""
+    p = conn.execute(
+        sa.select(sa.func.coalesce(sa.func.max(predictions.c.id), 0)).where(
+            predictions.c.model_id == model_id
+        )
+    ).scalar_one()
+    o = conn.execute(
+        sa.select(sa.func.coalesce(sa.func.max(outcomes.c.id), 0)).where(
+            outcomes.c.model_id == model_id
+        )
+    ).scalar_one()
+    r = conn.execute(
+        sa.select(sa.func.coalesce(sa.func.max(outcome_revisions.c.id), 0))
+        .join(outcomes, outcomes.c.id == outcome_revisions.c.outcome_id)
+        .where(outcomes.c.model_id == model_id)
+    ).scalar_one()
+    return int(p), int(o), int(r)
+
+
+def collect(
+    conn: sa.Connection,
+    *,
+    model_id: int,
+    horizon_us: int,
+    missing_negative: bool,
+    previous: Cursor | None,
+    as_of_us: int,
+    seqs: tuple[int, int, int],
+    deltas: Deltas,
+) -> None:
+    """Fill ``deltas`` with everything that changed between ``previous`` and now."""
+    p, o = predictions.c, outcomes.c
+    f1 = as_of_us - horizon_us
+    f0 = previous.as_of_us - horizon_us if previous else _NEG_INF
+    p0, o0, r0 = (
+        (previous.prediction_seq, previous.outcome_seq, previous.revision_seq)
+        if previous
+        else (0, 0, 0)
+    )
+    p1, _, _ = seqs
+
+    def state(row: sa.Row[Any], outcome: int | None, observed: int | None) -> RowState:
+        return classify(
+            outcome=outcome,
+            observed_at_us=observed,
+            predicted_at_us=row.predicted_at_us,
+            horizon_us=horizon_us,
+            missing_negative=missing_negative,
+        )
+
+    joined = (
+        sa.select(
+            p.id,
+            p.predicted_at_us,
+            p.probability,
+            p.version,
+            p.segments,
+            o.outcome,
+            o.observed_at_us,
+        )
+        .select_from(predictions.outerjoin(outcomes, o.prediction_id == p.id))
+        .where(p.model_id == model_id, p.id <= p1)
+    )
+    # 1. Matured since the last run, and 2. received since then although already matured.
+    for query in (
+        joined.where(p.predicted_at_us > f0, p.predicted_at_us <= f1).order_by(
+            p.predicted_at_us, p.id
+        ),
+        joined.where(p.id > p0, p.predicted_at_us <= f0),
+    ):
+        for row in _rows(conn, query):
+            deltas.add_row(
+                version=row.version,
+                predicted_at_us=row.predicted_at_us,
+                segments=row.segments,
+                p=row.probability,
+                before=None,
+                after=state(row, row.outcome, row.observed_at_us),
+            )
+    if previous is None:
+        return
+    applied = sa.and_(p.id <= p0, p.predicted_at_us <= f0)
+    # 3a. New outcomes of rows applied before (they were applied as "no outcome").
+    new_outcomes = (
+        sa.select(
+            p.predicted_at_us, p.probability, p.version, p.segments, o.outcome, o.observed_at_us
+        )
+        .select_from(outcomes.join(predictions, p.id == o.prediction_id))
+        .where(o.model_id == model_id, o.id > o0, applied)
+    )
+    for row in _rows(conn, new_outcomes):
+        deltas.add_row(
+            version=row.version,
+            predicted_at_us=row.predicted_at_us,
+            segments=row.segments,
+            p=row.probability,
+            before=state(row, None, None),
+            after=state(row, row.outcome, row.observed_at_us),
+        )
+    # 3b. Corrections of outcomes applied before: the earliest revision since the cursor
+    # holds the value that was applied; the outcome row holds the value now.
+    r = outcome_revisions.c
+    first = (
+        sa.select(r.outcome_id, sa.func.min(r.id).label("rid"))
+        .where(r.id > r0)
+        .group_by(r.outcome_id)
+        .subquery()
+    )
+    corrected = (
+        sa.select(
+            p.predicted_at_us,
+            p.probability,
+            p.version,
+            p.segments,
+            o.outcome,
+            o.observed_at_us,
+            r.outcome.label("old_outcome"),
+            r.observed_at_us.label("old_observed"),
+        )
+        .select_from(
+            first.join(outcome_revisions, r.id == first.c.rid)
+            .join(outcomes, o.id == first.c.outcome_id)
+            .join(predictions, p.id == o.prediction_id)
+        )
+        .where(o.model_id == model_id, o.id <= o0, applied)
+    )
+    for row in _rows(conn, corrected):
+        deltas.add_row(
+            version=row.version,
+            predicted_at_us=row.predicted_at_us,
+            segments=row.segments,
+            p=row.probability,
+            before=state(row, row.old_outcome, row.old_observed),
+            after=state(row, row.outcome, row.observed_at_us),
+        )

@@ -1,0 +1,67 @@
+"""Metrics of one slice from its summed bucket: the names of DESIGN.md "Metric names"."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from plumbwatch.stats._result import Undefined
+from plumbwatch.stats.smooth import smooth_ece_from_sketch
+from plumbwatch.stats.summary import binary_metrics
+from plumbwatch.store.sketches import Bucket
+
+# Later layers (score drift against the baseline) fill these; until then they are
+# null with this reason, never a made-up number.
+_LATER = {"psi": "no_baseline", "ks_statistic": "no_baseline", "ks_p_value": "no_baseline"}
+
+
+def slice_metrics(bucket: Bucket) -> tuple[dict[str, Any], dict[str, str]]:
+    values, reasons = binary_metrics(bucket.sketch)
+    metrics: dict[str, Any] = {k: (float(v) if v is not None else None) for k, v in values.items()}
+    metrics["n"] = round(bucket.sketch.n)
+    metrics["events"] = round(bucket.sketch.events)
+    metrics["late"] = bucket.late
+    metrics["label_coverage"] = (
+        (bucket.matured - bucket.unlabelled - bucket.late) / bucket.matured
+        if bucket.matured
+        else None
+    )
+    if bucket.matured == 0:
+        reasons["label_coverage"] = "no_matured_rows"
+    if metrics["n"] > 0:
+        try:
+            metrics["ece_smooth"] = float(smooth_ece_from_sketch(bucket.sketch).value)
+        except Undefined as exc:
+            metrics["ece_smooth"] = None
+            reasons["ece_smooth"] = exc.reason
+    else:
+        metrics["ece_smooth"] = None
+        reasons["ece_smooth"] = "no_rows"
+    if metrics.get("hl_df") is not None:
+        metrics["hl_df"] = int(metrics["hl_df"])
+    for name, reason in _LATER.items():
+        metrics[name] = None
+        reasons[name] = reason
+    return metrics, reasons
+
+
+def health(metrics: dict[str, Any], *, matured: int, min_events: int) -> str:
+    """``awaiting_labels`` with no matured rows, ``insufficient_data`` with fewer than
+    ``min_events`` events or non-events (100 by default: a common rule of thumb,
+    Vergouwe et al. 2005; METHODS.md section 12), else ``ok``."""
+    if matured == 0 or metrics["n"] == 0:
+        return "awaiting_labels"
+    events = metrics["events"]
+    if min(events, metrics["n"] - events) < min_events:
+        return "insufficient_data"
+    return "ok"
+
+
+# Worst first when a model's health is its worst slice's: an alarm outranks a verdict,
+# a verdict outranks "not enough data yet".
+HEALTH_ORDER = ("drifting", "watch", "ok", "insufficient_data", "awaiting_labels")
+
+
+def worst(states: list[str]) -> str:
+    if not states:
+        return "awaiting_labels"
+    return min(states, key=HEALTH_ORDER.index)

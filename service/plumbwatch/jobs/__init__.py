@@ -1,0 +1,1 @@
+"""The tick: take a model's lease, evaluate it, and (later) alerts and deliveries."""
