@@ -37,7 +37,7 @@ def _postgres_available() -> str | None:
     return None
 
 
-_PG_PROBLEM: str | None | bool = False  # False: not probed yet
+_PG_PROBLEM: str | bool | None = False  # False: not probed yet
 
 
 def require_postgres() -> None:
@@ -82,8 +82,10 @@ def pytest_generate_tests(metafunc: pytest.Metafunc) -> None:
     if "database_url" in metafunc.fixturenames:
         metafunc.parametrize(
             "database_url",
-            [pytest.param("sqlite", id="sqlite"),
-             pytest.param("postgresql", id="postgresql", marks=pytest.mark.postgres)],
+            [
+                pytest.param("sqlite", id="sqlite"),
+                pytest.param("postgresql", id="postgresql", marks=pytest.mark.postgres),
+            ],
             indirect=True,
         )
 

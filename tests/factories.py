@@ -79,11 +79,22 @@ class Service:
         return self.client.post(path, json=body, headers=self.headers(who), **kw)
 
 
-def make_token(engine: Engine, name: str, scope: str, model_id: int | None = None,
-               expires_at_us: int | None = None) -> str:
+def make_token(
+    engine: Engine,
+    name: str,
+    scope: str,
+    model_id: int | None = None,
+    expires_at_us: int | None = None,
+) -> str:
     with engine.begin() as conn:
-        _, secret = tokens.create(conn=conn, name=name, scope=scope, model_id=model_id,
-                                  expires_at_us=expires_at_us, now_us=NOW_US)
+        _, secret = tokens.create(
+            conn=conn,
+            name=name,
+            scope=scope,
+            model_id=model_id,
+            expires_at_us=expires_at_us,
+            now_us=NOW_US,
+        )
     return secret
 
 
@@ -93,7 +104,8 @@ def running_service(engine: Engine, **settings: Any) -> Iterator[Service]:
     settings.setdefault("scheduler", "off")
     config = Settings(database_url=str(engine.url), **settings)
     app = create_app(config, engine=engine, clock_us=lambda: NOW_US)
-    secrets = {scope: make_token(engine, f"t-{scope}", scope)
-               for scope in ("admin", "ingest", "read")}
+    secrets = {
+        scope: make_token(engine, f"t-{scope}", scope) for scope in ("admin", "ingest", "read")
+    }
     with TestClient(app) as client:
         yield Service(client=client, engine=engine, tokens=secrets)

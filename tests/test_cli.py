@@ -29,8 +29,10 @@ def test_migrate_then_tokens(cli_env: str, capsys) -> None:
     assert main(["migrate"]) == 0
     assert "already current" in capsys.readouterr().out
 
-    assert main(["token", "create", "--scope", "ingest", "--name", "pipeline",
-                 "--expires", "P30D"]) == 0
+    assert (
+        main(["token", "create", "--scope", "ingest", "--name", "pipeline", "--expires", "P30D"])
+        == 0
+    )
     out = capsys.readouterr().out.strip().splitlines()
     secret = out[-1]
     assert secret.startswith("pw_") and " " not in secret  # the bare token alone, last line

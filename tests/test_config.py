@@ -12,8 +12,12 @@ from plumbwatch.errors import ConfigError
 
 @pytest.fixture(autouse=True)
 def clean_env(monkeypatch: pytest.MonkeyPatch) -> None:
-    for name in ("PLUMBWATCH_CONFIG", "PLUMBWATCH_DATABASE_URL", "PLUMBWATCH_PORT",
-                 "PLUMBWATCH_HOST"):
+    for name in (
+        "PLUMBWATCH_CONFIG",
+        "PLUMBWATCH_DATABASE_URL",
+        "PLUMBWATCH_PORT",
+        "PLUMBWATCH_HOST",
+    ):
         monkeypatch.delenv(name, raising=False)
 
 
@@ -34,12 +38,15 @@ def test_environment_beats_file(tmp_path: Path, monkeypatch: pytest.MonkeyPatch)
     assert (s.host, s.port) == ("0.0.0.0", 9100)
 
 
-@pytest.mark.parametrize(("text", "match"), [
-    ("port = 0\n", "port"),
-    ("future_tolerance = 'an hour'\n", "future_tolerance"),
-    ("prot = 8000\n", "prot"),
-    ("port = [\n", "not valid TOML"),
-])
+@pytest.mark.parametrize(
+    ("text", "match"),
+    [
+        ("port = 0\n", "port"),
+        ("future_tolerance = 'an hour'\n", "future_tolerance"),
+        ("prot = 8000\n", "prot"),
+        ("port = [\n", "not valid TOML"),
+    ],
+)
 def test_bad_settings_say_which(tmp_path: Path, monkeypatch, text: str, match: str) -> None:
     file = tmp_path / "pw.toml"
     file.write_text(text)

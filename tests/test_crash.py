@@ -117,7 +117,11 @@ def keys_consistent(url: str) -> None:
 
 
 def client_loop(
-    server_url: str, token: str, ledger: Ledger, worker: int, stop: threading.Event,
+    server_url: str,
+    token: str,
+    ledger: Ledger,
+    worker: int,
+    stop: threading.Event,
     batch_size: int,
 ) -> None:
     """Post prediction batches, and outcome batches for what was acknowledged, until
@@ -148,9 +152,7 @@ def client_loop(
 def run_clients(
     target: Callable[[int, threading.Event], None], workers: int, stop: threading.Event
 ) -> list[threading.Thread]:
-    threads = [
-        threading.Thread(target=target, args=(w, stop), daemon=True) for w in range(workers)
-    ]
+    threads = [threading.Thread(target=target, args=(w, stop), daemon=True) for w in range(workers)]
     for t in threads:
         t.start()
     return threads
@@ -202,11 +204,14 @@ def test_kill_mid_stream_keeps_every_acknowledged_batch_once(
                 if b.acknowledged:
                     continue
                 if b.kind == "p":
-                    r = http.post(f"/v1/models/{MODEL}/predictions",
-                                  json={"predictions": prediction_rows(b.ids)})
+                    r = http.post(
+                        f"/v1/models/{MODEL}/predictions",
+                        json={"predictions": prediction_rows(b.ids)},
+                    )
                 else:
-                    r = http.post(f"/v1/models/{MODEL}/outcomes",
-                                  json={"outcomes": outcome_rows(b.ids)})
+                    r = http.post(
+                        f"/v1/models/{MODEL}/outcomes", json={"outcomes": outcome_rows(b.ids)}
+                    )
                 assert r.status_code == 200, r.text
                 assert r.json()["accepted"] + r.json()["duplicates"] == len(b.ids)
         sent = {i for b in ledger.batches if b.kind == "p" for i in b.ids}
@@ -241,8 +246,10 @@ def test_concurrent_overlapping_batches(database_url: str, tmp_path: Path) -> No
                 with lock:
                     sent.update(ids)
                 try:
-                    r = http.post(f"/v1/models/{MODEL}/predictions",
-                                  json={"predictions": prediction_rows(ids)})
+                    r = http.post(
+                        f"/v1/models/{MODEL}/predictions",
+                        json={"predictions": prediction_rows(ids)},
+                    )
                 except httpx.HTTPError as exc:
                     failures.append(repr(exc))
                     return

@@ -15,14 +15,19 @@ from plumbwatch.validation import ModelShape, validate_outcomes, validate_predic
 
 SHAPE = ModelShape(kind="binary", classes=(), segment_keys=frozenset({"region"}))
 NOW = to_micros(datetime(2030, 1, 1, tzinfo=UTC))
-instants = st.datetimes(min_value=datetime(1990, 1, 1), max_value=datetime(2029, 12, 31),
-                        timezones=st.sampled_from([UTC, timezone(timedelta(hours=5, minutes=30)),
-                                                   timezone(timedelta(hours=-8))]))
+instants = st.datetimes(
+    min_value=datetime(1990, 1, 1),
+    max_value=datetime(2029, 12, 31),
+    timezones=st.sampled_from(
+        [UTC, timezone(timedelta(hours=5, minutes=30)), timezone(timedelta(hours=-8))]
+    ),
+)
 
 
 def check(rows: list) -> tuple:
-    return validate_predictions({"predictions": rows}, SHAPE, now_us=NOW,
-                                future_tolerance_us=0, sum_tolerance=1e-6)
+    return validate_predictions(
+        {"predictions": rows}, SHAPE, now_us=NOW, future_tolerance_us=0, sum_tolerance=1e-6
+    )
 
 
 @settings(max_examples=200, deadline=None)
@@ -50,12 +55,23 @@ def test_durations(days: int, hours: int, minutes: int) -> None:
 
 
 @settings(max_examples=200, deadline=None)
-@given(st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.integers(-3, 3),
-                 st.booleans(), st.text(max_size=3), st.none()))
+@given(
+    st.one_of(
+        st.floats(allow_nan=True, allow_infinity=True),
+        st.integers(-3, 3),
+        st.booleans(),
+        st.text(max_size=3),
+        st.none(),
+    )
+)
 def test_probability_accepted_iff_a_finite_number_in_unit_interval(value: object) -> None:
     row = {"id": "a", "predicted_at": "2029-01-01T00:00:00Z", "probability": value}
-    ok = (not isinstance(value, bool) and isinstance(value, int | float)
-          and math.isfinite(value) and 0 <= value <= 1)
+    ok = (
+        not isinstance(value, bool)
+        and isinstance(value, int | float)
+        and math.isfinite(value)
+        and 0 <= value <= 1
+    )
     if ok:
         rows, _ = check([row])
         assert rows[0].probability == float(value)
@@ -68,8 +84,14 @@ def test_probability_accepted_iff_a_finite_number_in_unit_interval(value: object
 @settings(max_examples=100, deadline=None)
 @given(st.lists(st.tuples(st.integers(0, 30), st.booleans()), max_size=40))
 def test_every_bad_row_is_reported_once_with_its_index(spec: list) -> None:
-    rows = [{"id": f"r{i}-{k}", "predicted_at": "2029-01-01T00:00:00Z",
-             "probability": 0.5 if good else 2.0} for i, (k, good) in enumerate(spec)]
+    rows = [
+        {
+            "id": f"r{i}-{k}",
+            "predicted_at": "2029-01-01T00:00:00Z",
+            "probability": 0.5 if good else 2.0,
+        }
+        for i, (k, good) in enumerate(spec)
+    ]
     bad = [i for i, (_, good) in enumerate(spec) if not good]
     if not bad:
         assert len(check(rows)[0]) == len(rows)
@@ -82,14 +104,25 @@ def test_every_bad_row_is_reported_once_with_its_index(spec: list) -> None:
 @settings(max_examples=100, deadline=None)
 @given(st.permutations(list(range(8))))
 def test_result_does_not_depend_on_segment_order(order: list) -> None:
-    shape = ModelShape(kind="binary", classes=(),
-                       segment_keys=frozenset(f"k{i}" for i in range(8)))
+    shape = ModelShape(kind="binary", classes=(), segment_keys=frozenset(f"k{i}" for i in range(8)))
     segments = {f"k{i}": f"v{i}" for i in order}
     rows, _ = validate_predictions(
-        {"predictions": [{"id": "a", "predicted_at": "2029-01-01T00:00:00Z",
-                          "probability": 0.1, "segments": segments}]},
-        shape, now_us=NOW, future_tolerance_us=0, sum_tolerance=1e-6)
-    assert rows[0].segments == '{' + ",".join(f'"k{i}":"v{i}"' for i in range(8)) + '}'
+        {
+            "predictions": [
+                {
+                    "id": "a",
+                    "predicted_at": "2029-01-01T00:00:00Z",
+                    "probability": 0.1,
+                    "segments": segments,
+                }
+            ]
+        },
+        shape,
+        now_us=NOW,
+        future_tolerance_us=0,
+        sum_tolerance=1e-6,
+    )
+    assert rows[0].segments == "{" + ",".join(f'"k{i}":"v{i}"' for i in range(8)) + "}"
 
 
 @settings(max_examples=100, deadline=None)

@@ -287,9 +287,7 @@ def _checked_prediction(
         )
     version = item.get("version", DEFAULT_VERSION)
     if not isinstance(version, str) or not version or len(version) > MAX_VERSION_LENGTH:
-        problems.add(
-            i, "version", f"a non-empty string of at most {MAX_VERSION_LENGTH} characters"
-        )
+        problems.add(i, "version", f"a non-empty string of at most {MAX_VERSION_LENGTH} characters")
     segments = _segments(problems, i, item.get("segments"), shape.segment_keys)
     if len(problems.details) != before:
         return None

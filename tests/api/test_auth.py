@@ -29,8 +29,7 @@ def svc(service: Service) -> Service:
         assert late is not None
     service.tokens["bound-ingest"] = make_token(service.engine, "bound", "ingest", late.id)
     service.tokens["bound-admin"] = make_token(service.engine, "bound-a", "admin", late.id)
-    service.tokens["expired"] = make_token(service.engine, "old", "admin",
-                                           expires_at_us=NOW_US - 1)
+    service.tokens["expired"] = make_token(service.engine, "old", "admin", expires_at_us=NOW_US - 1)
     return service
 
 
@@ -62,16 +61,15 @@ def test_missing_bad_and_expired_tokens_are_401(svc: Service, method, path, body
 
 def test_model_bound_token(svc: Service) -> None:
     token = svc.tokens["bound-ingest"]
-    own = call(svc, "POST", "/v1/models/late/predictions", {"predictions": [prediction(1)]},
-               token)
+    own = call(svc, "POST", "/v1/models/late/predictions", {"predictions": [prediction(1)]}, token)
     assert own.status_code == 200
-    other = call(svc, "POST", "/v1/models/other/predictions", {"predictions": [prediction(1)]},
-                 token)
+    other = call(
+        svc, "POST", "/v1/models/other/predictions", {"predictions": [prediction(1)]}, token
+    )
     assert other.status_code == 403
     assert "bound to model 'late'" in other.json()["error"]["message"]
     # 403 comes before 404: a bound token learns nothing about other names.
-    assert call(svc, "POST", "/v1/models/nope/outcomes", {"outcomes": []},
-                token).status_code == 403
+    assert call(svc, "POST", "/v1/models/nope/outcomes", {"outcomes": []}, token).status_code == 403
     admin = svc.tokens["bound-admin"]
     assert call(svc, "GET", "/v1/models/late", None, admin).status_code == 200
     assert call(svc, "GET", "/v1/models/other", None, admin).status_code == 403
@@ -82,12 +80,18 @@ def test_model_bound_token(svc: Service) -> None:
 def test_precedence_401_403_404_413_422(svc: Service) -> None:
     bad_body = {"predictions": [prediction(1, probability=7)]}
     assert call(svc, "POST", "/v1/models/nope/predictions", bad_body, None).status_code == 401
-    assert call(svc, "POST", "/v1/models/nope/predictions", bad_body,
-                svc.tokens["read"]).status_code == 403
-    assert call(svc, "POST", "/v1/models/nope/predictions", bad_body,
-                svc.tokens["ingest"]).status_code == 404
-    assert call(svc, "POST", "/v1/models/late/predictions", bad_body,
-                svc.tokens["ingest"]).status_code == 422
+    assert (
+        call(svc, "POST", "/v1/models/nope/predictions", bad_body, svc.tokens["read"]).status_code
+        == 403
+    )
+    assert (
+        call(svc, "POST", "/v1/models/nope/predictions", bad_body, svc.tokens["ingest"]).status_code
+        == 404
+    )
+    assert (
+        call(svc, "POST", "/v1/models/late/predictions", bad_body, svc.tokens["ingest"]).status_code
+        == 422
+    )
 
 
 def test_revoked_token_stops_working(svc: Service) -> None:
@@ -105,8 +109,11 @@ def test_probes_are_open(svc: Service) -> None:
 
 
 def test_errors_use_the_shared_body(svc: Service) -> None:
-    for r in (svc.client.get("/nowhere"), svc.client.patch("/v1/models/late"),
-              svc.client.get("/v1/models", params={"limit": "x"}, headers=svc.headers())):
+    for r in (
+        svc.client.get("/nowhere"),
+        svc.client.patch("/v1/models/late"),
+        svc.client.get("/v1/models", params={"limit": "x"}, headers=svc.headers()),
+    ):
         err = r.json()["error"]
         assert set(err) == {"code", "message", "details"}
     r = svc.client.get("/v1/models", params={"limit": 0}, headers=svc.headers())

@@ -18,35 +18,51 @@ def test_put_creates_then_replaces(service: Service) -> None:
     assert r.status_code == 201
     body = r.json()
     assert body == {
-        "name": "late", "kind": "binary", "classes": None, "label_horizon": "P5D",
-        "missing_outcome": "wait", "segment_keys": ["region", "tier"],
-        "crosses": [["region", "tier"]], "windows": ["P7D", "P28D"], "baseline": None,
-        "rules": None, "description": "late delivery", "created_at": NOW, "updated_at": NOW,
+        "name": "late",
+        "kind": "binary",
+        "classes": None,
+        "label_horizon": "P5D",
+        "missing_outcome": "wait",
+        "segment_keys": ["region", "tier"],
+        "crosses": [["region", "tier"]],
+        "windows": ["P7D", "P28D"],
+        "baseline": None,
+        "rules": None,
+        "description": "late delivery",
+        "created_at": NOW,
+        "updated_at": NOW,
         "archived_at": None,
     }
-    r = service.client.put("/v1/models/late", json=binary_model(windows=["P14D"]),
-                           headers=service.headers())
+    r = service.client.put(
+        "/v1/models/late", json=binary_model(windows=["P14D"]), headers=service.headers()
+    )
     assert r.status_code == 200 and r.json()["windows"] == ["P14D"]
     assert service.client.get("/v1/models/late", headers=service.headers("read")).json() == (
-        r.json())
+        r.json()
+    )
 
 
-@pytest.mark.parametrize(("body", "field"), [
-    ({"kind": "binary"}, "label_horizon"),
-    (binary_model(kind="ternary"), "kind"),
-    (binary_model(label_horizon="5 days"), "label_horizon"),
-    (binary_model(label_horizon="P1M"), "label_horizon"),
-    (binary_model(windows=["PT36H"]), "windows"),
-    (binary_model(windows=[]), "windows"),
-    (binary_model(segment_keys=["re gion"]), "segment_keys"),
-    (binary_model(crosses=[["region", "depot"]]), ""),
-    (binary_model(classes=["a", "b"]), ""),
-    (multiclass_model(classes=["a"]), ""),
-    (multiclass_model(missing_outcome="negative"), ""),
-    (binary_model(baseline={"start": "2026-05-02T00:00:00Z", "end": "2026-05-01T00:00:00Z"}),
-     "baseline"),
-    (binary_model(colour="red"), "colour"),
-])
+@pytest.mark.parametrize(
+    ("body", "field"),
+    [
+        ({"kind": "binary"}, "label_horizon"),
+        (binary_model(kind="ternary"), "kind"),
+        (binary_model(label_horizon="5 days"), "label_horizon"),
+        (binary_model(label_horizon="P1M"), "label_horizon"),
+        (binary_model(windows=["PT36H"]), "windows"),
+        (binary_model(windows=[]), "windows"),
+        (binary_model(segment_keys=["re gion"]), "segment_keys"),
+        (binary_model(crosses=[["region", "depot"]]), ""),
+        (binary_model(classes=["a", "b"]), ""),
+        (multiclass_model(classes=["a"]), ""),
+        (multiclass_model(missing_outcome="negative"), ""),
+        (
+            binary_model(baseline={"start": "2026-05-02T00:00:00Z", "end": "2026-05-01T00:00:00Z"}),
+            "baseline",
+        ),
+        (binary_model(colour="red"), "colour"),
+    ],
+)
 def test_invalid_declarations_are_422(service: Service, body: dict, field: str) -> None:
     r = service.client.put("/v1/models/late", json=body, headers=service.headers())
     assert r.status_code == 422, r.text
@@ -66,13 +82,15 @@ def test_fixed_fields_cannot_change_once_rows_exist(service: Service) -> None:
     # Before any row, anything may change.
     service.put_model("late", binary_model(label_horizon="P6D"))
     service.post("/v1/models/late/predictions", {"predictions": [prediction(1)]})
-    for change in ({"label_horizon": "P7D"}, ):
-        r = service.client.put("/v1/models/late", json=binary_model(**change),
-                               headers=service.headers())
+    for change in ({"label_horizon": "P7D"},):
+        r = service.client.put(
+            "/v1/models/late", json=binary_model(**change), headers=service.headers()
+        )
         assert r.status_code == 409
         assert "label_horizon cannot change" in r.json()["error"]["message"]
-    r = service.client.put("/v1/models/late", json=multiclass_model(label_horizon="P6D"),
-                           headers=service.headers())
+    r = service.client.put(
+        "/v1/models/late", json=multiclass_model(label_horizon="P6D"), headers=service.headers()
+    )
     assert r.status_code == 409
     # Other fields still can.
     service.put_model("late", binary_model(label_horizon="P6D", description="new words"))
@@ -99,8 +117,10 @@ def test_delete_archives_and_put_restores(service: Service) -> None:
     service.post("/v1/models/late/predictions", {"predictions": [prediction(1)]})
     r = service.client.delete("/v1/models/late", headers=service.headers())
     assert r.status_code == 200 and r.json()["archived_at"] == NOW
-    names = [m["name"] for m in service.client.get("/v1/models", headers=service.headers())
-             .json()["models"]]
+    names = [
+        m["name"]
+        for m in service.client.get("/v1/models", headers=service.headers()).json()["models"]
+    ]
     assert names == []
     # The data stays; GET still shows the archived declaration.
     assert service.client.get("/v1/models/late", headers=service.headers()).status_code == 200
@@ -113,7 +133,7 @@ def test_delete_archives_and_put_restores(service: Service) -> None:
 def test_toml_declarations_apply_at_start_idempotently(engine: Engine, tmp_path: Path) -> None:
     config = tmp_path / "plumbwatch.toml"
     config.write_text(
-        'max_batch_rows = 500\n'
+        "max_batch_rows = 500\n"
         '[models.late]\nkind = "binary"\nlabel_horizon = "P5D"\nsegment_keys = ["region"]\n'
         '[models.route]\nkind = "multiclass"\nclasses = ["a", "b"]\nlabel_horizon = "P2D"\n'
     )

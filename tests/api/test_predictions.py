@@ -24,8 +24,12 @@ def stored(svc: Service) -> list[sa.Row]:
 
 
 def test_accepts_a_batch_and_stores_parsed_values(svc: Service) -> None:
-    body = {"predictions": [prediction(1), prediction(2, predicted_at="2026-05-30T10:00:00+02:00",
-                                                       probability=1, segments=None)]}
+    body = {
+        "predictions": [
+            prediction(1),
+            prediction(2, predicted_at="2026-05-30T10:00:00+02:00", probability=1, segments=None),
+        ]
+    }
     r = svc.post(URL, body, who="ingest")
     assert r.status_code == 200, r.text
     assert r.json() == {"accepted": 2, "duplicates": 0}
@@ -40,8 +44,11 @@ def test_accepts_a_batch_and_stores_parsed_values(svc: Service) -> None:
 def test_same_content_again_is_a_duplicate(svc: Service) -> None:
     svc.post(URL, {"predictions": [prediction(1)]})
     # Same instant in another offset, segments in another order: still equal on parsed values.
-    again = prediction(1, predicted_at="2026-05-30T10:00:00.000000+02:00",
-                       segments={"tier": "express", "region": "coast"})
+    again = prediction(
+        1,
+        predicted_at="2026-05-30T10:00:00.000000+02:00",
+        segments={"tier": "express", "region": "coast"},
+    )
     r = svc.post(URL, {"predictions": [again, prediction(2)]})
     assert r.status_code == 200
     assert r.json() == {"accepted": 1, "duplicates": 1}
@@ -54,17 +61,21 @@ def test_different_content_for_a_stored_id_is_409_and_stores_nothing(svc: Servic
     assert r.status_code == 409
     err = r.json()["error"]
     assert err["code"] == "conflict"
-    assert err["details"] == [{"index": 1, "field": "id",
-                               "reason": "'p-1' is stored with different content"}]
+    assert err["details"] == [
+        {"index": 1, "field": "id", "reason": "'p-1' is stored with different content"}
+    ]
     assert [row.client_id for row in stored(svc)] == ["p-1"]  # p-2 was not stored either
 
 
-@pytest.mark.parametrize("change", [
-    {"predicted_at": "2026-05-30T08:00:00.000001Z"},
-    {"version": "v2"},
-    {"segments": {"region": "coast"}},
-    {"segments": {"region": "coast", "tier": "standard"}},
-])
+@pytest.mark.parametrize(
+    "change",
+    [
+        {"predicted_at": "2026-05-30T08:00:00.000001Z"},
+        {"version": "v2"},
+        {"segments": {"region": "coast"}},
+        {"segments": {"region": "coast", "tier": "standard"}},
+    ],
+)
 def test_any_field_difference_is_a_conflict(svc: Service, change: dict) -> None:
     svc.post(URL, {"predictions": [prediction(1)]})
     assert svc.post(URL, {"predictions": [prediction(1, **change)]}).status_code == 409
@@ -76,29 +87,45 @@ def test_repeat_within_one_batch(svc: Service) -> None:
     different = svc.post(URL, {"predictions": [prediction(5), prediction(5, probability=0.9)]})
     assert different.status_code == 422
     assert different.json()["error"]["details"] == [
-        {"index": 1, "field": "id", "reason": "repeats the id of row 0 with different content"}]
+        {"index": 1, "field": "id", "reason": "repeats the id of row 0 with different content"}
+    ]
 
 
 INVALID_ROWS = [
     ({"id": ""}, "id", "required: a non-empty string"),
     ({"id": 7}, "id", "required: a non-empty string"),
     ({"id": "x" * 201}, "id", "longer than 200 characters"),
-    ({"predicted_at": "2026-05-30T08:00:00"}, "predicted_at",
-     "timestamp '2026-05-30T08:00:00' has no UTC offset (add Z or +hh:mm)"),
+    (
+        {"predicted_at": "2026-05-30T08:00:00"},
+        "predicted_at",
+        "timestamp '2026-05-30T08:00:00' has no UTC offset (add Z or +hh:mm)",
+    ),
     ({"predicted_at": "yesterday"}, "predicted_at", "not an RFC 3339 timestamp: 'yesterday'"),
-    ({"predicted_at": "2026-06-01T13:00:01Z"}, "predicted_at",
-     "lies further in the future than the future_tolerance setting"),
+    (
+        {"predicted_at": "2026-06-01T13:00:01Z"},
+        "predicted_at",
+        "lies further in the future than the future_tolerance setting",
+    ),
     ({"probability": 1.01}, "probability", "required: a finite number within [0, 1]"),
     ({"probability": -0.1}, "probability", "required: a finite number within [0, 1]"),
     ({"probability": "0.5"}, "probability", "required: a finite number within [0, 1]"),
     ({"probability": True}, "probability", "required: a finite number within [0, 1]"),
     ({"probability": None}, "probability", "required: a finite number within [0, 1]"),
-    ({"segments": {"depot": "d1"}}, "segments.depot",
-     "undeclared segment key (declared: region, tier)"),
-    ({"segments": {"region": 3}}, "segments.region",
-     "a non-empty string of at most 200 characters"),
-    ({"segments": {"region": "r" * 201}}, "segments.region",
-     "a non-empty string of at most 200 characters"),
+    (
+        {"segments": {"depot": "d1"}},
+        "segments.depot",
+        "undeclared segment key (declared: region, tier)",
+    ),
+    (
+        {"segments": {"region": 3}},
+        "segments.region",
+        "a non-empty string of at most 200 characters",
+    ),
+    (
+        {"segments": {"region": "r" * 201}},
+        "segments.region",
+        "a non-empty string of at most 200 characters",
+    ),
     ({"segments": ["region"]}, "segments", "an object mapping segment keys to string values"),
     ({"version": ""}, "version", "a non-empty string of at most 64 characters"),
     ({"version": "v" * 65}, "version", "a non-empty string of at most 64 characters"),
@@ -136,12 +163,17 @@ def test_every_bad_row_is_listed(svc: Service) -> None:
     assert r.status_code == 422
     err = r.json()["error"]
     assert [(d["index"], d["field"]) for d in err["details"]] == [
-        (2, "probability"), (7, "id"), (7, "predicted_at"), (9, "")]
+        (2, "probability"),
+        (7, "id"),
+        (7, "predicted_at"),
+        (9, ""),
+    ]
     assert err["message"].startswith("3 of 10 rows are invalid; nothing was stored")
 
 
-@pytest.mark.parametrize("body", [[], {"rows": []}, {"predictions": {}},
-                                  {"predictions": [], "extra": 1}])
+@pytest.mark.parametrize(
+    "body", [[], {"rows": []}, {"predictions": {}}, {"predictions": [], "extra": 1}]
+)
 def test_body_shape(svc: Service, body: object) -> None:
     r = svc.post(URL, body)
     assert r.status_code == 422
@@ -207,9 +239,11 @@ def test_multiclass_rules(service: Service) -> None:
         return service.post(url, {"predictions": [row]}).json()["error"]["details"]
 
     assert bad({"on_time": 0.7, "late": 0.3}) == [
-        {"index": 0, "field": "probabilities", "reason": "missing classes ['lost']"}]
+        {"index": 0, "field": "probabilities", "reason": "missing classes ['lost']"}
+    ]
     assert bad({"on_time": 0.7, "late": 0.2, "lost": 0.05, "stolen": 0.05})[0]["reason"] == (
-        "undeclared classes ['stolen']")
+        "undeclared classes ['stolen']"
+    )
     assert bad({"on_time": 0.7, "late": 0.2, "lost": 0.2})[0]["reason"].startswith("sum to 1.1")
     assert bad({"on_time": 1.2, "late": -0.2, "lost": 0.0})[0]["field"] == "probabilities.on_time"
     # Sums within the stated tolerance (1e-6 by default) are accepted.

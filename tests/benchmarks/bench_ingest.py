@@ -10,7 +10,8 @@ predictions of one model (default 1,000,000; random UUID ids) by calling
 ``store.ingest.write_predictions`` in 50,000-row transactions with the server
 stopped, settling the key tier as the server would. Then ``plumbwatch serve``
 runs as a subprocess and 4 client threads post R new predictions (random
-UUIDs, 1,000 per batch) and, on SQLite, outcomes for R of the preloaded ids.
+UUIDs; predicted_at rising over the last minute, within a second of jitter, as
+a live pipeline sends them; 1,000 per batch) and, on SQLite, outcomes for R of the preloaded ids.
 The bare-driver line writes the same new rows into a comparable table already
 holding N rows, in 1,000-row transactions: sqlite3 ``executemany`` into a table
 with a UNIQUE (model, client id) index (WAL, synchronous=FULL), or psycopg COPY
@@ -67,16 +68,18 @@ class Row:
     region: str
 
 
-def make_rows(rng: random.Random, n: int, now_us: int) -> list[Row]:
-    day_us = 86_400_000_000
+def make_rows(rng: random.Random, n: int, end_us: int, spread_us: int) -> list[Row]:
+    """Random UUID ids; predicted_at rising from end_us - spread_us to end_us, with up to
+    a second of jitter, the order in which a live pipeline scores and sends rows."""
+    step = spread_us / max(n, 1)
     return [
         Row(
             str(uuid.UUID(int=rng.getrandbits(128), version=4)),
-            now_us - rng.randrange(10 * day_us),
+            end_us - spread_us + int(k * step) - rng.randrange(1_000_000),
             rng.random(),
             rng.choice(REGIONS),
         )
-        for _ in range(n)
+        for k in range(n)
     ]
 
 
@@ -218,8 +221,15 @@ BARE_SQLITE = """CREATE TABLE bare_predictions (
 
 def _tuples(rows: Sequence[Row], now_us: int) -> list[tuple[object, ...]]:
     return [
-        (1, r.client_id, r.predicted_at_us, r.probability, "v1", f'{{"region":"{r.region}"}}',
-         now_us)
+        (
+            1,
+            r.client_id,
+            r.predicted_at_us,
+            r.probability,
+            "v1",
+            f'{{"region":"{r.region}"}}',
+            now_us,
+        )
         for r in rows
     ]
 
@@ -256,9 +266,7 @@ def bare_copy(
 
     dsn = sa.engine.make_url(pg_url).set(drivername="postgresql")
     conninfo = dsn.render_as_string(hide_password=False)
-    columns = (
-        "model_id, client_id, predicted_at_us, probability, version, segments, received_at_us"
-    )
+    columns = "model_id, client_id, predicted_at_us, probability, version, segments, received_at_us"
     with psycopg.connect(conninfo, options=f"-csearch_path={schema}") as db:
         db.execute(
             "CREATE TABLE bare_predictions (id BIGSERIAL PRIMARY KEY, model_id INTEGER NOT NULL,"
@@ -301,8 +309,10 @@ def run_engine(kind: str, args: argparse.Namespace, work: Path) -> Result:
     rng = random.Random(20260601)
     now_us = to_micros(datetime.now(UTC) - timedelta(minutes=1))
     print(f"[{kind}] generating {args.preload:,} + {args.rows:,} rows", flush=True)
-    preload_rows = make_rows(rng, args.preload, now_us)
-    new_rows = make_rows(rng, args.rows, now_us)
+    # History over the past ten days, then new rows over the last minute: ids random,
+    # times rising as a live pipeline sends them.
+    preload_rows = make_rows(rng, args.preload, now_us - 60_000_000, 10 * 86_400_000_000)
+    new_rows = make_rows(rng, args.rows, now_us, 60_000_000)
     schema = None
     if kind == "sqlite":
         url = f"sqlite:///{work / 'plumbwatch.db'}"
@@ -362,12 +372,16 @@ def report(results: list[Result], argv: list[str]) -> None:
     targets = {"sqlite": 40_000, "postgresql": 25_000}
     bare_name = {"sqlite": "bare sqlite3 executemany", "postgresql": "bare psycopg COPY"}
     for r in results:
-        print(f"{'HTTP ' + r.engine + ' predictions/s':48} {r.http_pred:>14,.0f} "
-              f"{'>= ' + format(targets[r.engine], ','):>12}")
+        print(
+            f"{'HTTP ' + r.engine + ' predictions/s':48} {r.http_pred:>14,.0f} "
+            f"{'>= ' + format(targets[r.engine], ','):>12}"
+        )
         print(f"{bare_name[r.engine] + ' rows/s (1,000-row tx)':48} {r.bare:>14,.0f}")
         target = ">= 1.0x" if r.engine == "sqlite" else ""
-        print(f"{'ratio HTTP / bare (' + r.engine + ')':48} {r.http_pred / r.bare:>13.2f}x "
-              f"{target:>12}")
+        print(
+            f"{'ratio HTTP / bare (' + r.engine + ')':48} {r.http_pred / r.bare:>13.2f}x "
+            f"{target:>12}"
+        )
         if r.outcomes is not None:
             print(f"{'HTTP ' + r.engine + ' outcomes/s':48} {r.outcomes:>14,.0f} {'>= 30,000':>12}")
         print(f"{'peak server RSS, MiB (' + r.engine + ')':48} {r.rss_mib:>14,.0f} {'< 300':>12}")

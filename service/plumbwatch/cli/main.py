@@ -22,7 +22,7 @@ from plumbwatch.store import tokens
 from plumbwatch.store.engine import create_engine
 from plumbwatch.store.migrate import current_revision, require_current, upgrade
 from plumbwatch.store.models import get_or_raise
-from plumbwatch.timefmt import format_instant, parse_duration, to_micros
+from plumbwatch.timefmt import format_instant, parse_duration, parse_instant, to_micros
 
 
 def _now_us() -> int:
@@ -133,6 +133,57 @@ def _token(engine: Engine, args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
+    from plumbwatch.evaluate.run import Options
+    from plumbwatch.jobs.tick import Evaluator, holder_name
+
+    now_us = _now_us()
+    as_of_us = to_micros(parse_instant(args.as_of)) if args.as_of else now_us
+    with _engine(settings) as engine:
+        require_current(engine)
+        evaluator = Evaluator(
+            engine,
+            holder_name(),
+            Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
+        )
+        if args.as_of:
+            if not args.model:
+                raise ValueError("--as-of needs --model (a replay is per model)")
+            with engine.connect() as conn:
+                model = get_or_raise(conn=conn, name=args.model)
+            record = evaluator.evaluate(model, as_of_us=as_of_us, now_us=now_us)
+            print(f"{model.name}: {record['health']} as of {record['as_of']}")
+            return 0
+        results = evaluator.tick(now_us=now_us, model_name=args.model)
+    for name, outcome in results.items():
+        print(f"{name}: {outcome}")
+    if not results:
+        print("no active models")
+    return 0
+
+
+def cmd_rebuild(settings: Settings, args: argparse.Namespace) -> int:
+    from plumbwatch.evaluate.rebuild import rebuild_model
+    from plumbwatch.store.models import list_models
+
+    with _engine(settings) as engine:
+        require_current(engine)
+        with engine.connect() as conn:
+            models = (
+                [get_or_raise(conn=conn, name=args.model)] if args.model else list_models(conn=conn)
+            )
+        for model in models:
+
+            def progress(rows: int, name: str = model.name) -> None:
+                print(f"  {name}: {rows:,} rows", file=sys.stderr, flush=True)
+
+            rows = rebuild_model(
+                engine, model, now_us=_now_us(), slice_cap=settings.slice_cap, progress=progress
+            )
+            print(f"{model.name}: rebuilt from {rows:,} matured rows")
+    return 0
+
+
 def cmd_demo(settings: Settings, args: argparse.Namespace) -> int:
     from plumbwatch.cli.demo import run_demo
 
@@ -166,6 +217,18 @@ def build_parser() -> argparse.ArgumentParser:
     revoke = token_sub.add_parser("revoke", help="revoke a token by name")
     revoke.add_argument("name")
     token.set_defaults(func=cmd_token)
+
+    evaluate = sub.add_parser("evaluate", help="evaluate models now (or replay one as of T)")
+    evaluate.add_argument("--model", help="only this model")
+    evaluate.add_argument("--as-of", help="RFC 3339 instant to evaluate as of (a replay)")
+    evaluate.add_argument(
+        "--no-notify", action="store_true", help="do not notify sinks (for backfills)"
+    )
+    evaluate.set_defaults(func=cmd_evaluate)
+
+    rebuild = sub.add_parser("rebuild", help="recompute sketches from the raw rows")
+    rebuild.add_argument("--model", help="only this model")
+    rebuild.set_defaults(func=cmd_rebuild)
 
     demo = sub.add_parser("demo", help="migrate a local SQLite file, create tokens and serve")
     demo.add_argument("--host")

@@ -15,7 +15,7 @@ So the work is proportional to what changed, never to the size of a window.
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -45,6 +45,14 @@ class Deltas:
     counts: dict[BucketKey, list[int]] = field(default_factory=dict)  # matured, late, unlabelled
     rows: int = 0
     _slices: dict[str | None, list[str]] = field(default_factory=dict)
+
+    def reset(self) -> None:
+        """Forget the collected deltas (after applying them); keep the slice-name cache."""
+        self.keys = {}
+        self.plus = ([], [], [])
+        self.minus = ([], [], [])
+        self.counts = {}
+        self.rows = 0
 
     def _names(self, segments: str | None) -> list[str]:
         names = self._slices.get(segments)
@@ -152,8 +160,13 @@ def collect(
     as_of_us: int,
     seqs: tuple[int, int, int],
     deltas: Deltas,
+    flush: tuple[int, Callable[[], None]] | None = None,
 ) -> None:
-    """Fill ``deltas`` with everything that changed between ``previous`` and now."""
+    """Fill ``deltas`` with everything that changed between ``previous`` and now.
+
+    ``flush = (rows, callback)`` calls ``callback`` whenever that many rows are
+    pending, so that a rebuild over millions of rows applies them in pieces.
+    """
     p, o = predictions.c, outcomes.c
     f1 = as_of_us - horizon_us
     f0 = previous.as_of_us - horizon_us if previous else _NEG_INF
@@ -163,6 +176,10 @@ def collect(
         else (0, 0, 0)
     )
     p1, _, _ = seqs
+
+    def check_flush() -> None:
+        if flush is not None and deltas.rows >= flush[0]:
+            flush[1]()
 
     def state(row: sa.Row[Any], outcome: int | None, observed: int | None) -> RowState:
         return classify(

@@ -26,6 +26,7 @@ import sqlalchemy as sa
 from plumbwatch.store.tables import row_keys, row_keys_recent
 
 LOOKUP_CHUNK = 2_000
+INSERT_ROWS = 500  # x 9 columns stays well under SQLite's 32,766 parameters
 _LOCK_NAMESPACE = 0x706C  # first key of pg_advisory_xact_lock(ns, model_id)
 
 
@@ -100,7 +101,10 @@ def insert_rows(
     """Bulk insert plain tuples inside the caller's transaction, at driver speed.
 
     PostgreSQL: COPY on the same connection (so the same transaction and
-    savepoint). SQLite: one ``executemany``.
+    savepoint). SQLite: multi-row ``INSERT ... VALUES``, ``INSERT_ROWS`` rows per
+    statement. Not ``executemany``: it steps once per row and releases the GIL
+    around each step, so while request threads validate JSON the writer waits for
+    the GIL a thousand times per batch.
     """
     names = ", ".join(columns)
     if conn.dialect.name == "postgresql":
@@ -110,8 +114,12 @@ def insert_rows(
                 copy.write_row(row)
         cursor.close()
         return
-    marks = ", ".join("?" * len(columns))
-    conn.exec_driver_sql(f"INSERT INTO {table} ({names}) VALUES ({marks})", list(rows))
+    one = "(" + ", ".join("?" * len(columns)) + ")"
+    for start in range(0, len(rows), INSERT_ROWS):
+        chunk = rows[start : start + INSERT_ROWS]
+        values = ", ".join([one] * len(chunk))
+        params = tuple(v for row in chunk for v in row)
+        conn.exec_driver_sql(f"INSERT INTO {table} ({names}) VALUES {values}", params)
 
 
 def recent_count(conn: sa.Connection) -> int:
