@@ -11,9 +11,11 @@ from plumbwatch.api.deps import EngineDep, PrincipalDep, SettingsDep, read_json
 from plumbwatch.api.responses import JsonResponse
 from plumbwatch.api.schemas import EvaluationCreate, body, errors, inline_schema
 from plumbwatch.errors import Detail, InvalidInput, NotFound
+from plumbwatch.evaluate.ranges import range_metrics
+from plumbwatch.evaluate.slices import OVERALL, parse_slice
 from plumbwatch.store import evaluations as store_evaluations
 from plumbwatch.store import models as store_models
-from plumbwatch.timefmt import parse_instant, to_micros
+from plumbwatch.timefmt import format_instant, parse_instant, to_micros
 
 router = APIRouter(prefix="/v1/models", tags=["evaluations"])
 
@@ -113,3 +115,44 @@ def list_evaluations(
     page = rows[:limit]
     next_cursor = str(page[-1][0]) if len(rows) > limit else None
     return JsonResponse({"evaluations": [r for _, r in page], "next_cursor": next_cursor})
+
+
+@router.get("/{model}/metrics", responses=errors(401, 403, 404, 422))
+def get_metrics(
+    model: str,
+    engine: EngineDep,
+    principal: PrincipalDep,
+    start: Annotated[str, Query(description="cohorts predicted at or after (RFC 3339)")],
+    end: Annotated[str, Query(description="cohorts predicted before (RFC 3339)")],
+    slice: Annotated[str, Query(description="overall, key:value or a cross")] = OVERALL,
+    version: Annotated[str | None, Query()] = None,
+) -> JsonResponse:
+    """Metrics of matured cohorts in any range, as of the latest evaluation."""
+    principal.require("read", model)
+    start_us, end_us = _instant("start", start), _instant("end", end)
+    assert start_us is not None and end_us is not None
+    if start_us >= end_us:
+        raise InvalidInput(
+            "start must be before end", [Detail(field="start", reason="not before end")]
+        )
+    try:
+        parse_slice(slice)
+    except ValueError as exc:
+        raise InvalidInput("invalid slice", [Detail(field="slice", reason=str(exc))]) from None
+    with engine.connect() as conn:
+        found = store_models.get_or_raise(conn=conn, name=model, include_archived=True)
+        as_of_us, metrics, reasons = range_metrics(
+            conn, found, start_us=start_us, end_us=end_us, slice_name=slice, version=version
+        )
+    return JsonResponse(
+        {
+            "model": model,
+            "as_of": format_instant(as_of_us),
+            "start": format_instant(start_us),
+            "end": format_instant(end_us),
+            "slice": slice,
+            "version": version,
+            "metrics": metrics,
+            "reasons": reasons,
+        }
+    )

@@ -1,0 +1,132 @@
+"""Metrics for any range of cohorts, exact at any bounds.
+
+Whole UTC days come from the stored sketches; the partial days at either end
+come from raw rows, classified exactly as the incremental runs classify them,
+as of the model's latest evaluation (its cursor).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import orjson
+import sqlalchemy as sa
+
+from plumbwatch.errors import NotFound
+from plumbwatch.evaluate.cohorts import DAY_US, classify
+from plumbwatch.evaluate.immature import _frozen
+from plumbwatch.evaluate.metrics import slice_metrics
+from plumbwatch.evaluate.slices import OVERALL, SliceSpec, ValueCap
+from plumbwatch.stats.sketch import Sketch
+from plumbwatch.store import sketches as store_sketches
+from plumbwatch.store.models import MonitoredModel
+from plumbwatch.store.sketches import Bucket
+from plumbwatch.store.tables import outcomes, predictions
+
+
+def range_metrics(
+    conn: sa.Connection,
+    model: MonitoredModel,
+    *,
+    start_us: int,
+    end_us: int,
+    slice_name: str = OVERALL,
+    version: str | None = None,
+) -> tuple[int, dict[str, Any], dict[str, str]]:
+    """(as_of, metrics, reasons) for cohorts with ``start <= predicted_at < end``."""
+    cursor = store_sketches.get_cursor(conn, model_id=model.id)
+    if cursor is None:
+        raise NotFound(f"model {model.name!r} has not been evaluated yet")
+    decl = model.declaration
+    horizon_us = decl.label_horizon_seconds * 1_000_000
+    frontier_us = cursor.as_of_us - horizon_us
+    first_full = -(-start_us // DAY_US)  # first day starting at or after start
+    end_full = end_us // DAY_US  # days before this end at or before end
+    total = Bucket(Sketch.empty())
+    if first_full < end_full:
+        for (v, _day, name), b in store_sketches.load_buckets(
+            conn, model_id=model.id, day_from=first_full, day_to=end_full
+        ).items():
+            if name == slice_name and (version is None or v == version):
+                total = total + b
+        edges = [(start_us, first_full * DAY_US), (end_full * DAY_US, end_us)]
+    else:
+        edges = [(start_us, end_us)]
+    cap = ValueCap(0, store_sketches.load_slice_values(conn, model_id=model.id))
+    spec = SliceSpec(keys=decl.segment_keys, crosses=decl.crosses)
+    for lo, hi in edges:
+        if lo < hi:
+            total = total + _raw_bucket(
+                conn,
+                model,
+                spec,
+                _frozen(cap),
+                lo=lo,
+                hi=min(hi, frontier_us + 1),
+                slice_name=slice_name,
+                version=version,
+                horizon_us=horizon_us,
+                max_ids=(cursor.prediction_seq, cursor.outcome_seq),
+            )
+    metrics, reasons = slice_metrics(total)
+    return cursor.as_of_us, metrics, reasons
+
+
+def _raw_bucket(
+    conn: sa.Connection,
+    model: MonitoredModel,
+    spec: SliceSpec,
+    cap: ValueCap,
+    *,
+    lo: int,
+    hi: int,
+    slice_name: str,
+    version: str | None,
+    horizon_us: int,
+    max_ids: tuple[int, int],
+) -> Bucket:
+    if lo >= hi:
+        return Bucket(Sketch.empty())
+
+    p, o = predictions.c, outcomes.c
+    query = (
+        sa.select(
+            p.probability, p.version, p.segments, p.predicted_at_us, o.outcome, o.observed_at_us
+        )
+        .select_from(
+            predictions.outerjoin(outcomes, sa.and_(o.prediction_id == p.id, o.id <= max_ids[1]))
+        )
+        .where(
+            p.model_id == model.id,
+            p.id <= max_ids[0],
+            p.predicted_at_us >= lo,
+            p.predicted_at_us < hi,
+        )
+    )
+    if version is not None:
+        query = query.where(p.version == version)
+    ys, ps = [], []
+    matured = late = unlabelled = 0
+    negative = model.declaration.missing_outcome == "negative"
+    for row in conn.execute(query):
+        segments = orjson.loads(row.segments) if row.segments else {}
+        if slice_name not in spec.names(segments, cap):
+            continue
+        state = classify(
+            outcome=row.outcome,
+            observed_at_us=row.observed_at_us,
+            predicted_at_us=row.predicted_at_us,
+            horizon_us=horizon_us,
+            missing_negative=negative,
+        )
+        matured += 1
+        late += state.late
+        unlabelled += state.unlabelled
+        if state.included:
+            ys.append(state.y)
+            ps.append(row.probability)
+    sketch = (
+        Sketch.from_arrays(np.asarray(ys, float), np.asarray(ps, float)) if ys else Sketch.empty()
+    )
+    return Bucket(sketch, matured, late, unlabelled)
