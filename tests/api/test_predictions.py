@@ -144,8 +144,10 @@ def test_each_validation_rule(svc: Service, change: dict, field: str, reason: st
 
 def test_nan_and_infinity_are_rejected(svc: Service) -> None:
     # JSON has no NaN; orjson refuses the literal, so the whole body is invalid JSON.
-    raw = (b'{"predictions": [{"id": "a", "predicted_at": "2026-05-30T08:00:00Z",'
-           b' "probability": NaN}]}')
+    raw = (
+        b'{"predictions": [{"id": "a", "predicted_at": "2026-05-30T08:00:00Z",'
+        b' "probability": NaN}]}'
+    )
     r = svc.client.post(URL, content=raw, headers=svc.headers())
     assert r.status_code == 422
     assert r.json()["error"]["details"][0]["field"] == "body"

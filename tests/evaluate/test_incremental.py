@@ -114,7 +114,12 @@ def windows_metrics(record: dict) -> dict:
     }
 
 
-def test_incremental_equals_rebuild_with_late_rows_and_corrections(engine: Engine) -> None:
+def test_incremental_equals_rebuild_with_late_rows_and_corrections(
+    engine: Engine, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import plumbwatch.evaluate.rebuild as rebuild
+
+    monkeypatch.setattr(rebuild, "_FLUSH_ROWS", 97)  # several partial flushes
     preds, outs = simulate(12, 60, seed=1)
     with running_service(engine) as svc:
         svc.put_model("m", model_body())
@@ -288,17 +293,30 @@ def test_range_metrics_are_exact_at_any_bounds(engine: Engine) -> None:
         svc.put_model("m", model_body())
         post(svc, preds, outs)
         evaluate(svc, T0 + timedelta(days=12))
-        r = svc.client.get("/v1/models/m/metrics", headers=svc.headers("read"), params={
-            "start": format_instant(start), "end": format_instant(end),
-            "slice": "region:coast,tier:express"})
+        r = svc.client.get(
+            "/v1/models/m/metrics",
+            headers=svc.headers("read"),
+            params={
+                "start": format_instant(start),
+                "end": format_instant(end),
+                "slice": "region:coast,tier:express",
+            },
+        )
         assert r.status_code == 200, r.text
-        bad = svc.client.get("/v1/models/m/metrics", headers=svc.headers("read"), params={
-            "start": format_instant(end), "end": format_instant(start)})
+        bad = svc.client.get(
+            "/v1/models/m/metrics",
+            headers=svc.headers("read"),
+            params={"start": format_instant(end), "end": format_instant(start)},
+        )
         assert bad.status_code == 422
     body = r.json()
     by_id = {o["id"]: o["outcome"] for o in outs}
-    rows = [p for p in preds if start <= parse_instant(p["predicted_at"]) < end
-            and p["segments"] == {"region": "coast", "tier": "express"}]
+    rows = [
+        p
+        for p in preds
+        if start <= parse_instant(p["predicted_at"]) < end
+        and p["segments"] == {"region": "coast", "tier": "express"}
+    ]
     y = np.array([by_id[p["id"]] for p in rows])
     p = np.array([p["probability"] for p in rows])
     # scikit-learn on exactly the rows in range (every outcome is within the horizon).

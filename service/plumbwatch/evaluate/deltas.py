@@ -219,6 +219,7 @@ def collect(
                 before=None,
                 after=state(row, row.outcome, row.observed_at_us),
             )
+            check_flush()
     if previous is None:
         return
     applied = sa.and_(p.id <= p0, p.predicted_at_us <= f0)

@@ -21,7 +21,8 @@ def start_scheduler(
         return None
 
     def tick() -> None:
-        results = evaluator.tick(now_us=clock_us())
+        interval_us = int(settings.evaluation_interval_seconds * 1_000_000)
+        results = evaluator.tick(now_us=clock_us(), interval_us=interval_us)
         log.info("evaluation tick: %s", results)
 
     scheduler = BackgroundScheduler(timezone="UTC")

@@ -39,6 +39,20 @@ class Evaluator:
 
     def evaluate(self, model: MonitoredModel, *, as_of_us: int, now_us: int) -> dict[str, Any]:
         """Evaluate under the model's lease; Conflict if another server holds it."""
+        record = self._evaluate(model, as_of_us=as_of_us, now_us=now_us)
+        assert record is not None
+        return record
+
+    def _evaluate(
+        self,
+        model: MonitoredModel,
+        *,
+        as_of_us: int,
+        now_us: int,
+        unless_done_since: int | None = None,
+    ) -> dict[str, Any] | None:
+        """With ``unless_done_since``: None when a record with an as_of at or after it
+        exists already (another server ran this tick)."""
         name = f"evaluate:{model.id}"
         with self.engine.begin() as conn:
             taken = store_evaluations.acquire_lease(
@@ -49,6 +63,11 @@ class Evaluator:
                 f"model {model.name!r} is being evaluated by another server; retry shortly"
             )
         try:
+            if unless_done_since is not None:
+                with self.engine.connect() as conn:
+                    last = store_evaluations.latest_as_of(conn, model_id=model.id)
+                if last is not None and last >= unless_done_since:
+                    return None
             return evaluate_model(
                 self.engine, model, as_of_us=as_of_us, now_us=now_us, options=self.options
             )
@@ -56,11 +75,18 @@ class Evaluator:
             with self.engine.begin() as conn:
                 store_evaluations.release_lease(conn, name=name, holder=self.holder)
 
-    def tick(self, *, now_us: int, model_name: str | None = None) -> dict[str, str]:
-        """Evaluate every active model (or one) as of now; returns model -> outcome.
+    def tick(
+        self, *, now_us: int, model_name: str | None = None, interval_us: int | None = None
+    ) -> dict[str, str]:
+        """Evaluate every active model (or one); returns model -> outcome.
 
+        With ``interval_us`` (the scheduler) the tick is aligned to the interval: its
+        as_of is the start of the current slot, and a model that another server
+        already evaluated for this slot is skipped, so N servers evaluate each model
+        once per tick. Without it (the command) the as_of is now.
         A model that fails is logged and reported; the others still run.
         """
+        as_of_us = now_us - now_us % interval_us if interval_us else now_us
         with self.engine.connect() as conn:
             if model_name:
                 models = [store_models.get_or_raise(conn=conn, name=model_name)]
@@ -69,10 +95,15 @@ class Evaluator:
         results = {}
         for model in models:
             try:
-                record = self.evaluate(model, as_of_us=now_us, now_us=now_us)
+                record = self._evaluate(
+                    model,
+                    as_of_us=as_of_us,
+                    now_us=now_us,
+                    unless_done_since=as_of_us if interval_us else None,
+                )
             except PlumbwatchError as exc:
                 log.warning("evaluation of %s skipped: %s", model.name, exc.message)
                 results[model.name] = f"skipped: {exc.message}"
                 continue
-            results[model.name] = record["health"]
+            results[model.name] = record["health"] if record else "done by another server"
         return results

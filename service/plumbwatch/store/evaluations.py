@@ -43,6 +43,13 @@ def latest(conn: sa.Connection, *, model_id: int) -> dict[str, Any] | None:
     return orjson.loads(row.record) if row else None
 
 
+def latest_as_of(conn: sa.Connection, *, model_id: int) -> int | None:
+    value = conn.execute(
+        sa.select(sa.func.max(evaluations.c.as_of_us)).where(evaluations.c.model_id == model_id)
+    ).scalar_one()
+    return int(value) if value is not None else None
+
+
 def list_records(
     conn: sa.Connection,
     *,

@@ -19,6 +19,7 @@ from __future__ import annotations
 import hashlib
 from collections import defaultdict
 from collections.abc import Iterable, Iterator, Sequence
+from itertools import chain
 from typing import Any
 
 import sqlalchemy as sa
@@ -118,7 +119,7 @@ def insert_rows(
     for start in range(0, len(rows), INSERT_ROWS):
         chunk = rows[start : start + INSERT_ROWS]
         values = ", ".join([one] * len(chunk))
-        params = tuple(v for row in chunk for v in row)
+        params = tuple(chain.from_iterable(chunk))
         conn.exec_driver_sql(f"INSERT INTO {table} ({names}) VALUES {values}", params)
 
 
