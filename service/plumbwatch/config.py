@@ -67,6 +67,9 @@ class Settings(BaseSettings):
     scheduler: str = Field("on", pattern="^(on|off)$", description="in-process evaluation")
     evaluation_interval: str = Field("PT5M", description="how often the scheduler evaluates")
     slice_cap: int = Field(50, ge=1, description="values kept per segment key; rest: other")
+    retention_days: int | None = Field(
+        None, ge=1, description="prune raw rows older than this many days (None: keep all)"
+    )
     min_events: int = Field(
         100, ge=1, description="events and non-events a slice needs for a verdict"
     )

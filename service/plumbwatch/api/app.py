@@ -65,6 +65,7 @@ def create_app(
         engine,
         holder_name(),
         Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
+        retention_days=settings.retention_days,
     )
     errors.install(app)
     for module in (health, models, predictions, outcomes, evaluations):

@@ -15,13 +15,16 @@ So the work is proportional to what changed, never to the size of a window.
 
 from __future__ import annotations
 
+from array import array
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
+from itertools import chain
 from typing import Any
 
 import numpy as np
 import orjson
 import sqlalchemy as sa
+from numpy.typing import NDArray
 
 from plumbwatch.evaluate.cohorts import RowState, classify, day_of
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
@@ -35,24 +38,34 @@ _CHUNK = 50_000
 
 @dataclass
 class Deltas:
-    """Row contributions to add and to remove, keyed by bucket."""
+    """Row contributions to add and to remove, keyed by bucket.
+
+    Rows are recorded once each, against their (version, day, segments) combination,
+    and expanded to the buckets of that combination's slices only when applied
+    (with numpy, in row order, so every bucket sums its rows in the order they came).
+    """
 
     spec: SliceSpec
     cap: ValueCap
     keys: dict[BucketKey, int] = field(default_factory=dict)
-    plus: tuple[list[int], list[float], list[int]] = field(default_factory=lambda: ([], [], []))
-    minus: tuple[list[int], list[float], list[int]] = field(default_factory=lambda: ([], [], []))
-    counts: dict[BucketKey, list[int]] = field(default_factory=dict)  # matured, late, unlabelled
     rows: int = 0
     _slices: dict[str | None, list[str]] = field(default_factory=dict)
+    # (version, day, segments) -> combination id; each combination's bucket indices.
+    _combos: dict[tuple[str, int, str | None], int] = field(default_factory=dict)
+    _combo_buckets: list[list[int]] = field(default_factory=list)
+    _counts: list[list[int]] = field(default_factory=list)  # matured, late, unlabelled
+    _plus: tuple[array[int], array[float], array[int]] = field(default_factory=lambda: _entries())
+    _minus: tuple[array[int], array[float], array[int]] = field(default_factory=lambda: _entries())
 
     def reset(self) -> None:
         """Forget the collected deltas (after applying them); keep the slice-name cache."""
         self.keys = {}
-        self.plus = ([], [], [])
-        self.minus = ([], [], [])
-        self.counts = {}
         self.rows = 0
+        self._combos = {}
+        self._combo_buckets = []
+        self._counts = []
+        self._plus = _entries()
+        self._minus = _entries()
 
     def _names(self, segments: str | None) -> list[str]:
         names = self._slices.get(segments)
@@ -60,6 +73,20 @@ class Deltas:
             names = self.spec.names(orjson.loads(segments) if segments else {}, self.cap)
             self._slices[segments] = names
         return names
+
+    def _combo(self, version: str, day: int, segments: str | None) -> int:
+        keys = self.keys
+        buckets = []
+        for name in self._names(segments):
+            key = (version, day, name)
+            index = keys.get(key)
+            if index is None:
+                index = keys[key] = len(keys)
+            buckets.append(index)
+        cid = self._combos[(version, day, segments)] = len(self._combo_buckets)
+        self._combo_buckets.append(buckets)
+        self._counts.append([0, 0, 0])
+        return cid
 
     def add_row(
         self,
@@ -74,54 +101,82 @@ class Deltas:
         """Move one row from ``before`` (None: not applied yet) to ``after``."""
         self.rows += 1
         day = day_of(predicted_at_us)
-        for name in self._names(segments):
-            key = (version, day, name)
-            index = self.keys.setdefault(key, len(self.keys))
-            counts = self.counts.setdefault(key, [0, 0, 0])
-            if before is None:
-                counts[0] += 1
-            else:
-                counts[1] -= before.late
-                counts[2] -= before.unlabelled
-                if before.included:
-                    self.minus[0].append(index)
-                    self.minus[1].append(p)
-                    self.minus[2].append(before.y)
-            counts[1] += after.late
-            counts[2] += after.unlabelled
-            if after.included:
-                self.plus[0].append(index)
-                self.plus[1].append(p)
-                self.plus[2].append(after.y)
+        cid = self._combos.get((version, day, segments))
+        if cid is None:
+            cid = self._combo(version, day, segments)
+        counts = self._counts[cid]
+        if before is None:
+            counts[0] += 1
+        else:
+            counts[1] -= before.late
+            counts[2] -= before.unlabelled
+            if before.included:
+                minus = self._minus
+                minus[0].append(cid)
+                minus[1].append(p)
+                minus[2].append(before.y)
+        counts[1] += after.late
+        counts[2] += after.unlabelled
+        if after.included:
+            plus = self._plus
+            plus[0].append(cid)
+            plus[1].append(p)
+            plus[2].append(after.y)
 
     def apply_to(self, buckets: dict[BucketKey, Bucket]) -> dict[BucketKey, Bucket]:
         """The touched buckets after the deltas (``buckets`` holds their stored state)."""
         n = len(self.keys)
         if n == 0:
             return {}
-        adds = _grouped(self.plus, n)
-        subs = _grouped(self.minus, n)
+        lens = np.fromiter((len(b) for b in self._combo_buckets), np.intp)
+        flat = np.fromiter(chain.from_iterable(self._combo_buckets), np.intp)
+        offsets = np.zeros(lens.size, np.intp)
+        np.cumsum(lens[:-1], out=offsets[1:])
+        adds = _grouped(_expand(self._plus, lens, offsets, flat), n)
+        subs = _grouped(_expand(self._minus, lens, offsets, flat), n)
+        counts = np.zeros((n, 3), np.int64)
+        np.add.at(counts, flat, np.repeat(np.asarray(self._counts, np.int64), lens, axis=0))
         out = {}
-        for key, i in self.keys.items():
+        for (key, i), c in zip(self.keys.items(), counts.tolist(), strict=True):
             base = buckets.get(key) or Bucket(Sketch.empty())
             sketch = base.sketch
             if adds[i] is not None:
                 sketch = sketch + adds[i]
             if subs[i] is not None:
                 sketch = sketch - subs[i]
-            c = self.counts[key]
             out[key] = Bucket(sketch, base.matured + c[0], base.late + c[1], base.unlabelled + c[2])
         return out
 
 
-def _grouped(entries: tuple[list[int], list[float], list[int]], n: int) -> list[Sketch | None]:
-    groups, ps, ys = entries
-    if not groups:
+def _entries() -> tuple[array[int], array[float], array[int]]:
+    return array("q"), array("d"), array("q")
+
+
+def _expand(
+    entries: tuple[array[int], array[float], array[int]],
+    lens: NDArray[np.intp],
+    offsets: NDArray[np.intp],
+    flat: NDArray[np.intp],
+) -> tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64]]:
+    """One entry per (row, bucket of its combination), rows in order, buckets in slice order."""
+    cids = np.frombuffer(entries[0], dtype=np.int64).astype(np.intp)
+    reps = lens[cids]
+    total = int(reps.sum())
+    starts = np.cumsum(reps) - reps  # first expanded position of each row
+    within = np.arange(total, dtype=np.intp) - np.repeat(starts, reps)
+    groups = flat[np.repeat(offsets[cids], reps) + within]
+    ps = np.repeat(np.frombuffer(entries[1], dtype=np.float64), reps)
+    ys = np.repeat(np.frombuffer(entries[2], dtype=np.int64).astype(np.float64), reps)
+    return groups, ps, ys
+
+
+def _grouped(
+    entries: tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64]], n: int
+) -> list[Sketch | None]:
+    g, ps, ys = entries
+    if not g.size:
         return [None] * n
-    g = np.asarray(groups, dtype=np.intp)
-    sketches = Sketch.from_arrays_grouped(
-        np.asarray(ys, dtype=np.float64), np.asarray(ps, dtype=np.float64), g, n
-    )
+    sketches = Sketch.from_arrays_grouped(ys, ps, g, n)
     present = np.bincount(g, minlength=n) > 0
     return [s if present[i] else None for i, s in enumerate(sketches)]
 

@@ -25,6 +25,7 @@ from plumbwatch.store import evaluations as store_evaluations
 from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.engine import BEGIN_OPTION
 from plumbwatch.store.models import MonitoredModel
+from plumbwatch.store.retention import oldest_prediction_us
 from plumbwatch.store.sketches import Bucket, BucketKey, Cursor
 from plumbwatch.timefmt import format_instant, parse_duration
 
@@ -97,6 +98,7 @@ def evaluate_model(
             as_of_us=as_of_us,
             max_prediction_id=seqs[0],
         )
+        raw_from = oldest_prediction_us(conn, model_id=model.id)
     current = {**stored, **touched}
     record = _record(
         model,
@@ -108,6 +110,7 @@ def evaluate_model(
         now_us=now_us,
         options=options,
         rows_applied=deltas.rows,
+        raw_from=raw_from,
     )
     write = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
     with write, write.begin():
@@ -181,6 +184,7 @@ def _record(
     now_us: int,
     options: Options,
     rows_applied: int,
+    raw_from: int | None,
 ) -> dict[str, Any]:
     out_windows = []
     states = []
@@ -217,6 +221,7 @@ def _record(
         "alerts": [],
         "slice_cap": {"cap": cap.cap, "capped_keys": cap.capped_keys()},
         "rows_applied": rows_applied,
+        "raw_rows_from": format_instant(raw_from) if raw_from is not None else None,
     }
 
 

@@ -17,9 +17,12 @@ from typing import Any
 from sqlalchemy.engine import Engine
 
 from plumbwatch.errors import Conflict, PlumbwatchError
+from plumbwatch.evaluate.cohorts import DAY_US
 from plumbwatch.evaluate.run import Options, evaluate_model
 from plumbwatch.store import evaluations as store_evaluations
 from plumbwatch.store import models as store_models
+from plumbwatch.store import retention
+from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.models import MonitoredModel
 
 log = logging.getLogger(__name__)
@@ -36,6 +39,7 @@ class Evaluator:
     engine: Engine
     holder: str
     options: Options = field(default_factory=Options)
+    retention_days: int | None = None
 
     def evaluate(self, model: MonitoredModel, *, as_of_us: int, now_us: int) -> dict[str, Any]:
         """Evaluate under the model's lease; Conflict if another server holds it."""
@@ -75,6 +79,24 @@ class Evaluator:
             with self.engine.begin() as conn:
                 store_evaluations.release_lease(conn, name=name, holder=self.holder)
 
+    def prune(self, model: MonitoredModel, *, now_us: int, batch: int = 5_000) -> int:
+        """Prune raw rows past the retention, in short transactions, never rows the
+        evaluation has not applied yet."""
+        assert self.retention_days is not None
+        with self.engine.connect() as conn:
+            cursor = store_sketches.get_cursor(conn, model_id=model.id)
+        if cursor is None:
+            return 0
+        frontier = cursor.as_of_us - model.declaration.label_horizon_seconds * 1_000_000
+        before = min(now_us - self.retention_days * DAY_US, frontier)
+        total = 0
+        while True:
+            with self.engine.begin() as conn:
+                done = retention.prune_batch(conn, model_id=model.id, before_us=before, batch=batch)
+            total += done
+            if done < batch:
+                return total
+
     def tick(
         self, *, now_us: int, model_name: str | None = None, interval_us: int | None = None
     ) -> dict[str, str]:
@@ -106,4 +128,8 @@ class Evaluator:
                 results[model.name] = f"skipped: {exc.message}"
                 continue
             results[model.name] = record["health"] if record else "done by another server"
+            if self.retention_days is not None and record is not None:
+                pruned = self.prune(model, now_us=now_us)
+                if pruned:
+                    log.info("pruned %d raw predictions of %s", pruned, model.name)
         return results

@@ -63,10 +63,10 @@ def hash_filter(conn: sa.Connection, hashes: Sequence[int]) -> tuple[str, list[A
 
 
 def chunked(values: Sequence[int], conn: sa.Connection) -> Iterator[Sequence[int]]:
-    # SQLite allows 32,766 parameters per statement; PostgreSQL takes one array.
-    size = LOOKUP_CHUNK if conn.dialect.name == "sqlite" else max(len(values), 1)
-    for start in range(0, len(values), size):
-        yield values[start : start + size]
+    # SQLite allows 32,766 parameters per statement. PostgreSQL takes any array, but
+    # past a few thousand values its planner turns index probes into table scans.
+    for start in range(0, len(values), LOOKUP_CHUNK):
+        yield values[start : start + LOOKUP_CHUNK]
 
 
 def lookup(

@@ -1,0 +1,505 @@
+"""Evaluation engine report: full recompute, rebuild, incremental run, reads, sizes.
+
+Run from the repository root::
+
+    .venv/bin/python tests/benchmarks/bench_evaluate.py [--engine sqlite|postgresql|both]
+        [--rows N] [--profile DIR]
+
+Per engine, in a fresh database (a SQLite file under a temporary directory, or a
+fresh schema on PostgreSQL), migrated through ``plumbwatch migrate``:
+
+1. One binary model with segment keys region (8 values), tier (3) and depot (90),
+   no crosses (102 slices, slice cap 100), label horizon P3D, windows P7D and
+   P28D. N predictions with random UUID ids, spread over 28 days and sent in time
+   order, and their outcomes (about 2 % observed after the horizon, 1 % never
+   labelled) are loaded through ``store.ingest.write_predictions`` and
+   ``write_outcomes`` in 100,000-row transactions (each chunk's predictions, then
+   its outcomes), settling the key tier whenever it holds 1,000,000 keys and at
+   the end. So rows and row keys are exactly those the API would store.
+   10,000 of the predictions get no outcome yet.
+2. The first evaluation (``jobs.tick.Evaluator``, as_of one second after every
+   cohort matured) is the full recompute from raw rows; then
+   ``evaluate.rebuild.rebuild_model``. Both run in a child process so that their
+   peak RSS (VmHWM of ``/proc/self/status``) is their own.
+3. The 10,000 withheld outcomes are written through ``write_outcomes`` and the
+   next evaluation (as_of one hour later) is timed, also in a child process.
+4. ``plumbwatch serve`` runs as a subprocess; the median of 20 calls each of
+   ``GET /status`` and ``GET /metrics`` for two ranges whose bounds fall inside
+   days is reported.
+5. Table sizes: ``dbstat`` on SQLite, ``pg_total_relation_size`` on PostgreSQL.
+
+This is a report, not a test: it asserts nothing. ``--profile DIR`` writes a
+cProfile of each child step there.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import uuid
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import httpx
+import numpy as np
+import sqlalchemy as sa
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from plumbwatch.declarations import ModelDeclaration  # noqa: E402
+from plumbwatch.store import keys  # noqa: E402
+from plumbwatch.store import models as store_models  # noqa: E402
+from plumbwatch.store.engine import BEGIN_OPTION, create_engine  # noqa: E402
+from plumbwatch.store.ingest import write_outcomes, write_predictions  # noqa: E402
+from plumbwatch.timefmt import format_instant, parse_instant, to_micros  # noqa: E402
+from plumbwatch.validation import OutcomeRow, PredictionRow  # noqa: E402
+from tests import live  # noqa: E402
+
+MODEL = "parcels"
+DAYS = 28
+HORIZON_DAYS = 3
+DAY_US = 86_400 * 1_000_000
+HOUR_US = 3_600 * 1_000_000
+T0_US = to_micros(parse_instant("2026-03-02T00:00:00Z"))
+WITHHELD = 10_000
+LOAD_TX = 100_000
+SETTLE_AT = 1_000_000
+SLICE_CAP = 100
+CALLS = 20
+DEFAULT_PG = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
+
+REGIONS = ("north", "south", "east", "west", "coast", "highland", "valley", "harbour")
+TIERS = ("express", "standard", "economy")
+DEPOTS = tuple(f"depot-{i:02d}" for i in range(90))
+# Canonical segment JSON (keys sorted) of every combination, indexed r, t, d.
+SEGMENTS = [
+    f'{{"depot":"{d}","region":"{r}","tier":"{t}"}}' for r in REGIONS for t in TIERS for d in DEPOTS
+]
+RAW_TABLES = ("predictions", "outcomes", "outcome_revisions", "row_keys", "row_keys_recent")
+DERIVED_TABLES = ("sketches", "evaluations", "evaluation_cursors", "slice_values")
+
+
+# ---- data -------------------------------------------------------------------------------
+
+
+@dataclass
+class Chunk:
+    ids: list[str]
+    predicted_at: np.ndarray
+    probability: np.ndarray
+    segment: np.ndarray
+    outcome: np.ndarray
+    observed_at: np.ndarray
+    labelled: np.ndarray  # False: no outcome is sent in the load
+
+
+def uuids(rng: np.random.Generator, n: int) -> list[str]:
+    """Random version-4 UUID strings."""
+    raw = rng.integers(0, 256, size=(n, 16), dtype=np.uint8)
+    raw[:, 6] = (raw[:, 6] & 0x0F) | 0x40
+    raw[:, 8] = (raw[:, 8] & 0x3F) | 0x80
+    text = raw.tobytes().hex()
+    return [
+        f"{h[0:8]}-{h[8:12]}-{h[12:16]}-{h[16:20]}-{h[20:32]}"
+        for h in (text[i : i + 32] for i in range(0, 32 * n, 32))
+    ]
+
+
+def make_chunk(seed: int, k: int, start: int, stop: int, total: int, withheld: set[int]) -> Chunk:
+    """Rows start..stop of total, in time order over DAYS days (a pipeline sends them so)."""
+    rng = np.random.default_rng([seed, k])
+    n = stop - start
+    span = DAYS * DAY_US
+    base = (np.arange(start, stop, dtype=np.float64) / total * span).astype(np.int64)
+    predicted = T0_US + base + rng.integers(0, 1_000_000, n)
+    np.clip(predicted, T0_US, T0_US + span - 1, out=predicted)
+    p = np.clip(rng.beta(2.0, 5.0, n), 1e-4, 1 - 1e-4)
+    r = rng.integers(0, len(REGIONS), n)
+    t = rng.integers(0, len(TIERS), n)
+    d = rng.integers(0, len(DEPOTS), n)
+    segment = (r * len(TIERS) + t) * len(DEPOTS) + d
+    # Calibrated, except that the coast region's odds rise through the last fortnight.
+    odds = np.where((r == REGIONS.index("coast")) & (base > span // 2), 1.6, 1.0)
+    q = 1.0 / (1.0 + (1.0 - p) / (p * odds))
+    y = (rng.random(n) < q).astype(np.int64)
+    horizon = HORIZON_DAYS * DAY_US
+    delay = rng.integers(HOUR_US, horizon, n)
+    late = rng.random(n) < 0.02
+    delay[late] = horizon + rng.integers(HOUR_US, 2 * DAY_US, int(late.sum()))
+    labelled = rng.random(n) >= 0.01
+    idx = np.arange(start, stop)
+    labelled &= ~np.isin(idx, np.fromiter(withheld, np.int64)) if withheld else True
+    return Chunk(uuids(rng, n), predicted, p, segment, y, predicted + delay, labelled)
+
+
+def withheld_rows(total: int, seed: int) -> set[int]:
+    rng = np.random.default_rng([seed, 999_999])
+    return set(rng.choice(total, size=min(WITHHELD, total // 10), replace=False).tolist())
+
+
+# ---- database ---------------------------------------------------------------------------
+
+
+def fresh_database(kind: str, work: Path, pg_url: str) -> tuple[str, str | None]:
+    if kind == "sqlite":
+        return f"sqlite:///{work / 'plumbwatch.db'}", None
+    schema = f"bench_{uuid.uuid4().hex[:10]}"
+    admin = sa.create_engine(pg_url)
+    with admin.begin() as conn:
+        conn.exec_driver_sql(f'CREATE SCHEMA "{schema}"')
+    admin.dispose()
+    url = (
+        sa.engine.make_url(pg_url)
+        .update_query_dict({"options": f"-csearch_path={schema}"})
+        .render_as_string(hide_password=False)
+    )
+    return url, schema
+
+
+def drop_schema(pg_url: str, schema: str) -> None:
+    admin = sa.create_engine(pg_url)
+    with admin.begin() as conn:
+        conn.exec_driver_sql(f'DROP SCHEMA "{schema}" CASCADE')
+    admin.dispose()
+
+
+def declare(url: str, now_us: int) -> int:
+    engine = create_engine(url)
+    decl = ModelDeclaration.model_validate(
+        {
+            "kind": "binary",
+            "label_horizon": f"P{HORIZON_DAYS}D",
+            "segment_keys": ["region", "tier", "depot"],
+            "windows": ["P7D", "P28D"],
+            "description": "parcel arrives late",
+        }
+    )
+    with engine.begin() as conn:
+        model, _ = store_models.upsert(conn=conn, name=MODEL, declaration=decl, now_us=now_us)
+    engine.dispose()
+    return model.id
+
+
+def write_tx(engine: sa.Engine) -> sa.Connection:
+    return engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
+
+
+def load(url: str, model_id: int, total: int, seed: int, now_us: int) -> dict[str, Any]:
+    """Predictions and outcomes through the store's ingest functions; returns figures."""
+    engine = create_engine(url)
+    withheld = withheld_rows(total, seed)
+    kept: list[tuple[str, int, int]] = []  # withheld outcomes: id, outcome, observed_at
+    started = time.perf_counter()
+    n_out = 0
+    for k, start in enumerate(range(0, total, LOAD_TX)):
+        stop = min(start + LOAD_TX, total)
+        c = make_chunk(seed, k, start, stop, total, withheld)
+        preds = [
+            PredictionRow(i, c.ids[i], int(c.predicted_at[i]), float(c.probability[i]), None,
+                          "v1", SEGMENTS[c.segment[i]])
+            for i in range(stop - start)
+        ]  # fmt: skip
+        outs = [
+            OutcomeRow(i, c.ids[i], int(c.outcome[i]), int(c.observed_at[i]))
+            for i in np.flatnonzero(c.labelled)
+        ]
+        for i in range(stop - start):
+            if start + i in withheld:
+                kept.append((c.ids[i], int(c.outcome[i]), int(c.observed_at[i])))
+        with write_tx(engine) as conn, conn.begin():
+            write_predictions(conn, model_id=model_id, rows=preds, now_us=now_us)
+            write_outcomes(conn, model_id=model_id, rows=outs, now_us=now_us, correction=False)
+            if keys.recent_count(conn) >= SETTLE_AT:
+                keys.settle(conn)
+        n_out += len(outs)
+        if k % 10 == 9:
+            rate = stop / (time.perf_counter() - started)
+            print(f"    loaded {stop:,} predictions ({rate:,.0f}/s)", flush=True)
+    with write_tx(engine) as conn, conn.begin():
+        keys.settle(conn)
+    seconds = time.perf_counter() - started
+    analyse(engine)
+    engine.dispose()
+    return {"load_s": seconds, "outcomes": n_out, "withheld": kept}
+
+
+def analyse(engine: sa.Engine) -> None:
+    with engine.connect() as c:
+        if engine.dialect.name == "postgresql":
+            c.execution_options(isolation_level="AUTOCOMMIT").exec_driver_sql("VACUUM ANALYZE")
+        else:  # outside any transaction: the engine's begin hook would open one
+            raw = c.connection.driver_connection
+            raw.execute("ANALYZE")
+            raw.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+
+
+def post_withheld(url: str, model_id: int, rows: list[tuple[str, int, int]], now_us: int) -> float:
+    engine = create_engine(url)
+    started = time.perf_counter()
+    for start in range(0, len(rows), 1_000):  # 1,000-row batches, as a labelling job sends
+        batch = [OutcomeRow(i, *r) for i, r in enumerate(rows[start : start + 1_000])]
+        with write_tx(engine) as conn, conn.begin():
+            write_outcomes(conn, model_id=model_id, rows=batch, now_us=now_us, correction=False)
+    seconds = time.perf_counter() - started
+    engine.dispose()
+    return seconds
+
+
+def table_sizes(url: str) -> dict[str, int]:
+    """Bytes per table, indexes included."""
+    engine = create_engine(url)
+    out: dict[str, int] = {}
+    with engine.connect() as conn:
+        if engine.dialect.name == "sqlite":
+            owner = dict(conn.exec_driver_sql("SELECT name, tbl_name FROM sqlite_master").all())
+            for name, size in conn.exec_driver_sql(
+                "SELECT name, SUM(pgsize) FROM dbstat GROUP BY name"
+            ):
+                table = owner.get(name, name)
+                out[table] = out.get(table, 0) + int(size)
+        else:
+            for name in (*RAW_TABLES, *DERIVED_TABLES):
+                out[name] = int(
+                    conn.exec_driver_sql(f"SELECT pg_total_relation_size('{name}')").scalar_one()
+                )
+    engine.dispose()
+    return out
+
+
+# ---- child steps (own process: own peak RSS) ----------------------------------------------
+
+
+def vm_hwm_mib() -> float:
+    for line in Path("/proc/self/status").read_text().splitlines():
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+def child(args: argparse.Namespace) -> None:
+    from plumbwatch.evaluate.rebuild import rebuild_model
+    from plumbwatch.evaluate.run import Options
+    from plumbwatch.jobs.tick import Evaluator, holder_name
+
+    engine = create_engine(args.url)
+    with engine.connect() as conn:
+        model = store_models.get_or_raise(conn=conn, name=MODEL)
+    base = vm_hwm_mib()
+    profiler = None
+    if args.profile_to:
+        import cProfile
+
+        profiler = cProfile.Profile()
+        profiler.enable()
+    started = time.perf_counter()
+    if args.child == "evaluate":
+        evaluator = Evaluator(engine, holder_name(), Options(slice_cap=SLICE_CAP))
+        record = evaluator.evaluate(model, as_of_us=args.as_of_us, now_us=args.now_us)
+        rows = record["rows_applied"]
+        extra = {"health": record["health"], "slices": len(record["windows"][-1]["slices"])}
+    else:
+        rows = rebuild_model(engine, model, now_us=args.now_us, slice_cap=SLICE_CAP)
+        extra = {}
+    seconds = time.perf_counter() - started
+    if profiler is not None:
+        profiler.disable()
+        profiler.dump_stats(args.profile_to)
+    engine.dispose()
+    result = {"seconds": seconds, "rows": rows, "rss_mib": vm_hwm_mib(), "base_mib": base}
+    print(json.dumps({**result, **extra}))
+
+
+def run_child(url: str, step: str, *, as_of_us: int, now_us: int, profile: Path | None) -> dict:
+    cmd = [sys.executable, __file__, "--child", step, "--url", url]
+    cmd += ["--as-of-us", str(as_of_us), "--now-us", str(now_us)]
+    if profile is not None:
+        cmd += ["--profile-to", str(profile)]
+    done = subprocess.run(cmd, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        raise RuntimeError(f"{step} failed:\n{done.stderr}")
+    return dict(json.loads(done.stdout.strip().splitlines()[-1]))
+
+
+# ---- reads through the server -------------------------------------------------------------
+
+
+def median_ms(client: httpx.Client, path: str, params: dict[str, str] | None = None) -> float:
+    client.get(path, params=params).raise_for_status()  # warm
+    times = []
+    for _ in range(CALLS):
+        started = time.perf_counter()
+        r = client.get(path, params=params)
+        times.append((time.perf_counter() - started) * 1000)
+        r.raise_for_status()
+    return statistics.median(times)
+
+
+def timed_reads(url: str, token: str, log: Path) -> dict[str, float]:
+    day = T0_US // DAY_US
+    ranges = {
+        # Six whole days from sketches plus two one-hour edges from raw rows.
+        "metrics_edges": ((day + 10) * DAY_US + 23 * HOUR_US, (day + 17) * DAY_US + HOUR_US),
+        # Twelve hours inside one day: all from raw rows.
+        "metrics_in_day": ((day + 12) * DAY_US + 6 * HOUR_US, (day + 12) * DAY_US + 18 * HOUR_US),
+    }
+    out = {}
+    with live.served(url, log) as server:
+        headers = {"Authorization": f"Bearer {token}"}
+        with httpx.Client(base_url=server.url, headers=headers, timeout=120) as client:
+            out["status"] = median_ms(client, f"/v1/models/{MODEL}/status")
+            for name, (lo, hi) in ranges.items():
+                params = {
+                    "start": format_instant(lo),
+                    "end": format_instant(hi),
+                    "slice": "region:coast",
+                }
+                out[name] = median_ms(client, f"/v1/models/{MODEL}/metrics", params)
+    return out
+
+
+# ---- one engine -----------------------------------------------------------------------------
+
+
+@dataclass
+class Result:
+    engine: str
+    rows: int
+    figures: dict[str, Any] = field(default_factory=dict)
+    sizes: dict[str, int] = field(default_factory=dict)
+
+
+def run_engine(kind: str, args: argparse.Namespace, work: Path) -> Result:
+    result = Result(kind, args.rows)
+    f = result.figures
+    url, schema = fresh_database(kind, work, args.pg_url)
+    now_us = T0_US + (DAYS + HORIZON_DAYS) * DAY_US + 1_000_000
+    profile = Path(args.profile) if args.profile else None
+    if profile:
+        profile.mkdir(parents=True, exist_ok=True)
+    try:
+        token = live.migrate_and_token(url, name="bench-admin")
+        model_id = declare(url, now_us)
+        print(f"[{kind}] loading {args.rows:,} predictions and their outcomes", flush=True)
+        loaded = load(url, model_id, args.rows, args.seed, now_us)
+        f["load_s"] = loaded["load_s"]
+        f["outcomes"] = loaded["outcomes"]
+        print(f"[{kind}] loaded in {f['load_s']:.1f} s", flush=True)
+
+        as_of = now_us  # one second after the last cohort matured
+        first = run_child(
+            url, "evaluate", as_of_us=as_of, now_us=as_of,
+            profile=profile / f"{kind}-first.prof" if profile else None,
+        )  # fmt: skip
+        f["first"] = first
+        print(f"[{kind}] first evaluation {first['seconds']:.1f} s", flush=True)
+        rebuilt = run_child(
+            url, "rebuild", as_of_us=as_of, now_us=as_of,
+            profile=profile / f"{kind}-rebuild.prof" if profile else None,
+        )  # fmt: skip
+        f["rebuild"] = rebuilt
+        print(f"[{kind}] rebuild {rebuilt['seconds']:.1f} s", flush=True)
+
+        f["post_s"] = post_withheld(url, model_id, loaded["withheld"], as_of + HOUR_US)
+        f["posted"] = len(loaded["withheld"])
+        second = run_child(
+            url, "evaluate", as_of_us=as_of + HOUR_US, now_us=as_of + HOUR_US,
+            profile=profile / f"{kind}-incremental.prof" if profile else None,
+        )  # fmt: skip
+        f["incremental"] = second
+        print(f"[{kind}] incremental evaluation {second['seconds']:.2f} s", flush=True)
+
+        f["reads"] = timed_reads(url, token, work / f"server-{kind}.log")
+        result.sizes = table_sizes(url)
+        return result
+    finally:
+        if schema is not None:
+            drop_schema(args.pg_url, schema)
+
+
+# ---- report ---------------------------------------------------------------------------------
+
+
+def mib(n: int) -> str:
+    return f"{n / 2**20:,.1f}"
+
+
+def report(results: list[Result], argv: list[str]) -> None:
+    print()
+    print("command: .venv/bin/python tests/benchmarks/bench_evaluate.py " + " ".join(argv))
+    for r in results:
+        f = r.figures
+        first, rebuilt, inc = f["first"], f["rebuild"], f["incremental"]
+        ratio = first["seconds"] / inc["seconds"]
+        reads = f["reads"]
+        print()
+        print(f"engine {r.engine}: {r.rows:,} predictions, {f['outcomes']:,} outcomes loaded")
+        print(f"{'measure':58} {'value':>14} {'target':>10}")
+        lines = [
+            ("load through write_predictions/write_outcomes, s", f"{f['load_s']:,.1f}", ""),
+            ("load rate, predictions/s (outcomes alongside)", f"{r.rows / f['load_s']:,.0f}", ""),
+            ("first evaluation (full recompute), s", f"{first['seconds']:,.2f}", ""),
+            ("  rows applied", f"{first['rows']:,}", ""),
+            ("  peak RSS of the process, MiB", f"{first['rss_mib']:,.0f}", ""),
+            ("rebuild_model, s", f"{rebuilt['seconds']:,.2f}", ""),
+            ("  peak RSS of the process, MiB", f"{rebuilt['rss_mib']:,.0f}", "< 1,024"),
+            (f"write {f['posted']:,} new outcomes (1,000-row batches), s", f"{f['post_s']:.2f}", ""),
+            ("incremental evaluation after them, s", f"{inc['seconds']:,.3f}", "< 2"),
+            ("  rows applied", f"{inc['rows']:,}", ""),
+            ("  speed-up against the full recompute", f"{ratio:,.0f}x", ">= 20x"),
+            ("GET /status, median of 20, ms", f"{reads['status']:,.1f}", "< 200"),
+            ("GET /metrics 6 days + two 1 h edges, median, ms", f"{reads['metrics_edges']:,.1f}",
+             "< 200"),
+            ("GET /metrics 12 h inside one day, median, ms", f"{reads['metrics_in_day']:,.1f}",
+             "< 200"),
+        ]  # fmt: skip
+        for name, value, target in lines:
+            print(f"{name:58} {value:>14} {target:>10}")
+        print(f"slices in the P28D window: {first['slices']}; health {inc['health']}")
+        raw = sum(r.sizes.get(t, 0) for t in RAW_TABLES)
+        derived = sum(r.sizes.get(t, 0) for t in DERIVED_TABLES)
+        print(f"{'table (' + r.engine + ', indexes included)':40} {'MiB':>12}")
+        for t in (*RAW_TABLES, *DERIVED_TABLES):
+            print(f"{t:40} {mib(r.sizes.get(t, 0)):>12}")
+        print(f"{'raw total':40} {mib(raw):>12}")
+        print(f"{'derived total':40} {mib(derived):>12}")
+        print(f"{'derived / raw':40} {derived / raw:>12.4%}")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=(__doc__ or "").split("\n")[0])
+    parser.add_argument("--engine", choices=["sqlite", "postgresql", "both"], default="both")
+    parser.add_argument("--rows", type=int, default=10_000_000)
+    parser.add_argument("--seed", type=int, default=20260301)
+    parser.add_argument("--pg-url", default=DEFAULT_PG)
+    parser.add_argument("--profile", help="write a cProfile of each evaluation step here")
+    parser.add_argument("--keep", action="store_true", help="keep the work directory")
+    # Internal: one step in a child process.
+    parser.add_argument("--child", choices=["evaluate", "rebuild"], help=argparse.SUPPRESS)
+    parser.add_argument("--url", help=argparse.SUPPRESS)
+    parser.add_argument("--as-of-us", type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--now-us", type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--profile-to", help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.child:
+        child(args)
+        return
+    kinds = ["sqlite", "postgresql"] if args.engine == "both" else [args.engine]
+    work = Path(tempfile.mkdtemp(prefix="plumbwatch-bench-eval-"))
+    try:
+        results = [run_engine(k, args, work) for k in kinds]
+    finally:
+        if not args.keep:
+            shutil.rmtree(work, ignore_errors=True)
+    report(results, sys.argv[1:])
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,48 @@
+"""Retention prunes raw rows past the cut-off in batches; sketches and records stay."""
+
+from __future__ import annotations
+
+from datetime import timedelta
+
+import sqlalchemy as sa
+from sqlalchemy.engine import Engine
+
+from plumbwatch.jobs.tick import Evaluator
+from plumbwatch.store.models import get
+from plumbwatch.store.tables import outcomes, predictions, row_keys, row_keys_recent, sketches
+from plumbwatch.timefmt import to_micros
+from tests.evaluate.test_incremental import T0, evaluate, model_body, post, simulate
+from tests.factories import running_service
+
+
+def count(engine: Engine, table: sa.Table) -> int:
+    with engine.connect() as conn:
+        return int(conn.execute(sa.select(sa.func.count()).select_from(table)).scalar_one())
+
+
+def test_prune_keeps_sketches_and_unapplied_rows(engine: Engine) -> None:
+    preds, outs = simulate(10, 30, seed=9)
+    with running_service(engine) as svc:
+        svc.put_model("m", model_body())
+        post(svc, preds, outs)
+        record = evaluate(svc, T0 + timedelta(days=8))  # frontier: day 5
+        before = {t.name: count(engine, t) for t in (sketches, predictions)}
+        with engine.connect() as conn:
+            model = get(conn=conn, name="m")
+        assert model is not None
+        evaluator = Evaluator(engine, "test", retention_days=2)
+        now = to_micros(T0 + timedelta(days=30))
+        pruned = evaluator.prune(model, now_us=now, batch=25)
+        # Only rows before the maturity frontier (day 5) go, however old the cut-off.
+        assert pruned == 5 * 30
+        assert count(engine, predictions) == before["predictions"] - 150
+        assert count(engine, outcomes) == 10 * 30 - 150
+        keys = count(engine, row_keys) + count(engine, row_keys_recent)
+        assert keys == 2 * (10 * 30 - 150)
+        assert count(engine, sketches) == before["sketches"]
+        # The pruned ids are gone: sending one again is a new row, not a duplicate.
+        again = svc.post("/v1/models/m/predictions", {"predictions": [preds[0]]}).json()
+        assert again == {"accepted": 1, "duplicates": 0}
+        later = evaluate(svc, T0 + timedelta(days=8, hours=1))
+    assert record["raw_rows_from"].startswith("2026-05-01")
+    assert later["raw_rows_from"].startswith("2026-05-01")  # the re-sent row

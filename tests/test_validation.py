@@ -1,0 +1,80 @@
+"""The fast path of ingest validation agrees with the full checks.
+
+validation.py checks plainly valid rows with a short path and sends anything
+else through the full checks; these properties pin that the short path never
+accepts what the full checks refuse, nor stores a different value.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from plumbwatch.timefmt import parse_instant, to_micros
+from plumbwatch.validation import (
+    ModelShape,
+    _checked_prediction,
+    _fast_binary_prediction,
+    _fast_instant,
+    _Problems,
+    _SegmentCache,
+)
+
+SHAPE = ModelShape(kind="binary", classes=(), segment_keys=frozenset({"region", "tier"}))
+LATEST_US = to_micros(parse_instant("2026-06-01T13:00:00Z"))
+
+digits = st.integers(min_value=0, max_value=99).map(lambda n: f"{n:02d}")
+timestamps = st.builds(
+    lambda y, mo, d, h, mi, s, frac, sep, off: f"{y:04d}-{mo}-{d}{sep}{h}:{mi}:{s}{frac}{off}",
+    st.integers(min_value=0, max_value=9999),
+    digits, digits, digits, digits, digits,
+    st.sampled_from(["", ".5", ".123456", ".1234567", ".123456789", "."]),
+    st.sampled_from(["T", "t", " ", "_"]),
+    st.sampled_from(["Z", "z", "+02:00", "-23:59", "+24:00", "", "+0200", "Z\n"]),
+)
+
+
+def slow_instant(text: str) -> int | None:
+    try:
+        return to_micros(parse_instant(text))
+    except (ValueError, OverflowError):
+        return None
+
+
+@settings(max_examples=1_000, deadline=None, database=None)
+@given(timestamps)
+def test_fast_instant_matches_the_full_parse(text: str) -> None:
+    fast = _fast_instant(text)
+    if fast is not None:
+        assert fast == slow_instant(text)
+
+
+values = st.one_of(
+    st.none(), st.booleans(), st.integers(-2, 2), st.floats(allow_nan=True),
+    st.text(max_size=3), st.lists(st.integers(), max_size=1),
+)
+rows = st.fixed_dictionaries(
+    {"id": st.one_of(st.text(max_size=3), st.integers(), st.just("x" * 201))},
+    optional={
+        "predicted_at": st.one_of(timestamps, st.just("2026-06-01T12:00:00Z"), values),
+        "probability": values,
+        "version": values,
+        "segments": st.one_of(
+            values, st.dictionaries(st.sampled_from(["region", "tier", "depot"]), values)
+        ),
+        "probabilities": values,
+        "colour": values,
+    },
+)
+
+
+@settings(max_examples=1_000, deadline=None, database=None)
+@given(rows)
+def test_fast_row_matches_the_full_checks(item: dict[str, Any]) -> None:
+    fast = _fast_binary_prediction(0, item, LATEST_US, _SegmentCache(SHAPE.segment_keys))
+    if fast is not None:
+        problems = _Problems()
+        assert _checked_prediction(problems, 0, item, SHAPE, LATEST_US, 1e-6) == fast
+        assert problems.details == []
