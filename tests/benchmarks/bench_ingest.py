@@ -99,7 +99,10 @@ def preload(url: str, rows: Sequence[Row], now_us: int) -> float:
     with engine.begin() as conn:
         model, _ = store_models.upsert(conn=conn, name=MODEL, declaration=decl, now_us=now_us)
     started = time.perf_counter()
-    for part in chunks(rows, PRELOAD_TX):
+    for n, part in enumerate(chunks(rows, PRELOAD_TX)):
+        if n == 1 and engine.dialect.name == "postgresql":
+            with engine.begin() as conn:
+                conn.exec_driver_sql("ANALYZE")
         batch = [
             PredictionRow(
                 i,
@@ -118,6 +121,9 @@ def preload(url: str, rows: Sequence[Row], now_us: int) -> float:
                 write_predictions(conn, model_id=model.id, rows=batch, now_us=now_us)
                 if keys.recent_count(conn) >= 200_000:
                     keys.settle(conn)
+                    if engine.dialect.name == "postgresql":
+                        # Fresh statistics, or the planner scans whole tables per lookup.
+                        conn.exec_driver_sql("ANALYZE")
     with engine.begin() as conn:
         keys.settle(conn)
     if engine.dialect.name == "postgresql":

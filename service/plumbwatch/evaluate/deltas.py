@@ -26,7 +26,7 @@ import orjson
 import sqlalchemy as sa
 from numpy.typing import NDArray
 
-from plumbwatch.evaluate.cohorts import RowState, classify, day_of
+from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify, day_of
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
 from plumbwatch.stats.sketch import Sketch
 from plumbwatch.store.sketches import Bucket, BucketKey, Cursor
@@ -87,6 +87,25 @@ class Deltas:
         self._combo_buckets.append(buckets)
         self._counts.append([0, 0, 0])
         return cid
+
+    def add_new(
+        self, version: str, predicted_at_us: int, segments: str | None, p: float, after: RowState
+    ) -> None:
+        """``add_row`` with ``before=None`` (a row applied for the first time), positionally."""
+        self.rows += 1
+        day = predicted_at_us // DAY_US
+        cid = self._combos.get((version, day, segments))
+        if cid is None:
+            cid = self._combo(version, day, segments)
+        counts = self._counts[cid]
+        counts[0] += 1
+        counts[1] += after.late
+        counts[2] += after.unlabelled
+        if after.included:
+            plus = self._plus
+            plus[0].append(cid)
+            plus[1].append(p)
+            plus[2].append(after.y)
 
     def add_row(
         self,
@@ -185,6 +204,11 @@ def _rows(conn: sa.Connection, query: sa.Select[Any]) -> Iterator[sa.Row[Any]]:
     yield from conn.execute(query.execution_options(yield_per=_CHUNK))
 
 
+def _tuples(conn: sa.Connection, query: sa.Select[Any]) -> Iterator[tuple[Any, ...]]:
+    rows: Iterator[tuple[Any, ...]] = iter(conn.execute(query.execution_options(yield_per=_CHUNK)))
+    return rows
+
+
 def current_seqs(conn: sa.Connection, *, model_id: int) -> tuple[int, int, int]:
     """The largest prediction, outcome and revision ids of the model in this snapshot."""
     p = conn.execute(
@@ -232,10 +256,6 @@ def collect(
     )
     p1, _, _ = seqs
 
-    def check_flush() -> None:
-        if flush is not None and deltas.rows >= flush[0]:
-            flush[1]()
-
     def state(row: sa.Row[Any], outcome: int | None, observed: int | None) -> RowState:
         return classify(
             outcome=outcome,
@@ -258,6 +278,7 @@ def collect(
         .select_from(predictions.outerjoin(outcomes, o.prediction_id == p.id))
         .where(p.model_id == model_id, p.id <= p1)
     )
+    known: dict[tuple[int | None, bool], RowState] = {}
     # 1. Matured since the last run, and 2. received since then although already matured.
     for query in (
         joined.where(p.predicted_at_us > f0, p.predicted_at_us <= f1).order_by(
@@ -265,16 +286,25 @@ def collect(
         ),
         joined.where(p.id > p0, p.predicted_at_us <= f0),
     ):
-        for row in _rows(conn, query):
-            deltas.add_row(
-                version=row.version,
-                predicted_at_us=row.predicted_at_us,
-                segments=row.segments,
-                p=row.probability,
-                before=None,
-                after=state(row, row.outcome, row.observed_at_us),
-            )
-            check_flush()
+        # The bulk of a first run or a rebuild: plain tuples, the state looked up by
+        # (outcome, observed within the horizon) instead of classified row by row.
+        for _, at, prob, version, segments, outcome, observed in _tuples(conn, query):
+            if outcome is None or observed is None:
+                key: tuple[int | None, bool] = (None, False)
+            else:
+                key = (outcome, observed <= at + horizon_us)
+            after = known.get(key)
+            if after is None:
+                after = known[key] = classify(
+                    outcome=outcome,
+                    observed_at_us=observed,
+                    predicted_at_us=at,
+                    horizon_us=horizon_us,
+                    missing_negative=missing_negative,
+                )
+            deltas.add_new(version, at, segments, prob, after)
+            if flush is not None and deltas.rows >= flush[0]:
+                flush[1]()
     if previous is None:
         return
     applied = sa.and_(p.id <= p0, p.predicted_at_us <= f0)

@@ -43,6 +43,7 @@ FloatArray = NDArray[np.float64]
 SIGMA_MIN = 1e-3  # below this the fixed-point search stops (relplot uses the same floor)
 _MIN_NODES = 2001
 _NODES_PER_SIGMA = 40
+_FIRST_LOW = 0.01
 
 
 @dataclass(frozen=True)
@@ -90,11 +91,19 @@ def _fixed_point(loc: FloatArray, resid: FloatArray, mass: FloatArray) -> tuple[
     def gap(s: float) -> float:
         return _smooth_ece_points(loc, resid, mass, s) - s
 
-    if gap(SIGMA_MIN) <= 0.0:
-        # Calibrated to within the floor: report the value at the floor.
-        return _smooth_ece_points(loc, resid, mass, SIGMA_MIN), SIGMA_MIN, False
-    # smECE_σ <= 1 for every σ (|y - f| <= 1), so gap(1) <= 0 and [floor, 1] brackets.
-    sigma = float(optimize.brentq(gap, SIGMA_MIN, 1.0, xtol=1e-7, rtol=1e-10))
+    # Small σ needs many grid nodes (h <= σ/40), so the bracket starts at 0.01 and
+    # only falls back to the floor when the root lies below it.
+    # smECE_σ <= 1 for every σ (|y - f| <= 1), so gap(1) <= 0: halve σ from 0.01
+    # until the gap turns positive, which brackets the root without touching the
+    # costly small bandwidths unless the root is there.
+    low, high = _FIRST_LOW, 1.0
+    while gap(low) <= 0.0:
+        if low <= SIGMA_MIN:
+            # Calibrated to within the floor: report the value at the floor.
+            return _smooth_ece_points(loc, resid, mass, SIGMA_MIN), SIGMA_MIN, False
+        low, high = max(low / 2.0, SIGMA_MIN), low
+    # xtol 1e-6: at the fixed point the value equals σ, so this is its precision too.
+    sigma = float(optimize.brentq(gap, low, high, xtol=1e-6, rtol=1e-6))
     return _smooth_ece_points(loc, resid, mass, sigma), sigma, True
 
 

@@ -40,8 +40,10 @@ def lock_model(conn: sa.Connection, model_id: int) -> None:
     """Serialise writers of one model across PostgreSQL servers (no-op on SQLite,
     where the write transaction already holds the database's write lock)."""
     if conn.dialect.name == "postgresql":
+        # Advisory locks are per database: the schema's name keeps two plumbwatch
+        # schemas in one database (tests, staging beside production) apart.
         conn.execute(
-            sa.text("SELECT pg_advisory_xact_lock(:ns, :model)"),
+            sa.text("SELECT pg_advisory_xact_lock(hashtext(current_schema()) # :ns, :model)"),
             {"ns": _LOCK_NAMESPACE, "model": model_id},
         )
 
