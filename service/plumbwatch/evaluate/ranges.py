@@ -17,7 +17,7 @@ from plumbwatch.errors import NotFound
 from plumbwatch.evaluate.cohorts import DAY_US, classify
 from plumbwatch.evaluate.immature import _frozen
 from plumbwatch.evaluate.metrics import slice_metrics
-from plumbwatch.evaluate.slices import OVERALL, SliceSpec, ValueCap
+from plumbwatch.evaluate.slices import OTHER, OVERALL, SliceSpec, ValueCap, parse_slice
 from plumbwatch.stats.sketch import Sketch
 from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.models import MonitoredModel
@@ -46,7 +46,7 @@ def range_metrics(
     total = Bucket(Sketch.empty())
     if first_full < end_full:
         for (v, _day, name), b in store_sketches.load_buckets(
-            conn, model_id=model.id, day_from=first_full, day_to=end_full
+            conn, model_id=model.id, day_from=first_full, day_to=end_full, slice_name=slice_name
         ).items():
             if name == slice_name and (version is None or v == version):
                 total = total + b
@@ -106,6 +106,11 @@ def _raw_bucket(
     )
     if version is not None:
         query = query.where(p.version == version)
+    for key, value in parse_slice(slice_name):
+        if value != OTHER:
+            # A cheap text prefilter on the canonical JSON; the slice test below decides.
+            fragment = f'"{key}":' + orjson.dumps(value).decode()
+            query = query.where(p.segments.contains(fragment, autoescape=True))
     ys, ps = [], []
     matured = late = unlabelled = 0
     negative = model.declaration.missing_outcome == "negative"

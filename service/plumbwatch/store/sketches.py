@@ -93,8 +93,10 @@ def load_buckets(
     keys: Iterable[BucketKey] | None = None,
     day_from: int | None = None,
     day_to: int | None = None,
+    slice_name: str | None = None,
 ) -> dict[BucketKey, Bucket]:
-    """Stored buckets: the given keys, or every bucket with day in [day_from, day_to)."""
+    """Stored buckets: the given keys, or every bucket with day in [day_from, day_to)
+    (of one slice if ``slice_name`` is given)."""
     t = sketches.c
     query = sa.select(t.version, t.day, t.slice, t.matured, t.late, t.unlabelled, t.data).where(
         t.model_id == model_id
@@ -103,6 +105,8 @@ def load_buckets(
         query = query.where(t.day >= day_from)
     if day_to is not None:
         query = query.where(t.day < day_to)
+    if slice_name is not None:
+        query = query.where(t.slice == slice_name)
     wanted = set(keys) if keys is not None else None
     if wanted is not None:
         days = sorted({d for _, d, _ in wanted})
