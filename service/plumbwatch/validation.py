@@ -220,10 +220,18 @@ def _fast_binary_prediction(
 
 
 def validate_predictions(
-    body: Any, shape: ModelShape, *, now_us: int, future_tolerance_us: int, sum_tolerance: float
+    body: Any,
+    shape: ModelShape,
+    *,
+    now_us: int,
+    future_tolerance_us: int,
+    sum_tolerance: float,
+    earliest_us: int | None = None,
 ) -> tuple[list[PredictionRow], int]:
     """Validate a predictions body. Returns (distinct rows, repeats within the batch).
 
+    ``earliest_us``: with a retention setting, rows predicted before it are refused:
+    their raw rows would already be pruned, so storing one again would count it twice.
     Raises InvalidInput listing every bad row.
     """
     raw = _rows(body, "predictions")
@@ -240,6 +248,9 @@ def validate_predictions(
             row = _checked_prediction(problems, i, item, shape, latest_us, sum_tolerance)
             if row is None:
                 continue
+        if earliest_us is not None and row.predicted_at_us < earliest_us:
+            problems.add(i, "predicted_at", "is older than the retention_days setting keeps")
+            continue
         previous = seen.get(row.client_id)
         if previous is not None:
             if not previous[1].same_content(row):

@@ -40,9 +40,23 @@ def test_prune_keeps_sketches_and_unapplied_rows(engine: Engine) -> None:
         keys = count(engine, row_keys) + count(engine, row_keys_recent)
         assert keys == 2 * (10 * 30 - 150)
         assert count(engine, sketches) == before["sketches"]
-        # The pruned ids are gone: sending one again is a new row, not a duplicate.
-        again = svc.post("/v1/models/m/predictions", {"predictions": [preds[0]]}).json()
-        assert again == {"accepted": 1, "duplicates": 0}
         later = evaluate(svc, T0 + timedelta(days=8, hours=1))
     assert record["raw_rows_from"].startswith("2026-05-01")
-    assert later["raw_rows_from"].startswith("2026-05-01")  # the re-sent row
+    assert later["raw_rows_from"].startswith("2026-05-06")  # how far back raw rows reach
+
+
+def test_rows_older_than_retention_are_refused(engine: Engine) -> None:
+    # A pruned id sent again would be counted twice; such old rows are refused instead.
+    with running_service(engine, retention_days=30) as svc:
+        svc.put_model("m", model_body())
+        old = {"id": "x", "predicted_at": "2026-04-01T00:00:00Z", "probability": 0.2}
+        recent = {"id": "y", "predicted_at": "2026-05-20T00:00:00Z", "probability": 0.2}
+        r = svc.post("/v1/models/m/predictions", {"predictions": [recent, old]})
+        assert r.status_code == 422
+        assert r.json()["error"]["details"] == [
+            {
+                "index": 1,
+                "field": "predicted_at",
+                "reason": "is older than the retention_days setting keeps",
+            }
+        ]

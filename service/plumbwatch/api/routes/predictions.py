@@ -34,6 +34,9 @@ async def post_predictions(
         now_us=now_us,
         future_tolerance_us=settings.future_tolerance_micros,
         sum_tolerance=settings.probability_sum_tolerance,
+        earliest_us=(
+            now_us - settings.retention_days * 86_400_000_000 if settings.retention_days else None
+        ),
     )
     result = await write(
         request,
