@@ -26,10 +26,11 @@ import orjson
 import sqlalchemy as sa
 from numpy.typing import NDArray
 
+from plumbwatch.evaluate import multiclass
 from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify, day_of
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
 from plumbwatch.stats.sketch import Sketch
-from plumbwatch.store.sketches import Bucket, BucketKey, Cursor
+from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
 from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
 
 _NEG_INF = -(2**62)
@@ -47,6 +48,7 @@ class Deltas:
 
     spec: SliceSpec
     cap: ValueCap
+    n_classes: int = 0  # 0: binary; else p is a JSON array of class probabilities
     keys: dict[BucketKey, int] = field(default_factory=dict)
     rows: int = 0
     _slices: dict[str | None, list[str]] = field(default_factory=dict)
@@ -104,7 +106,10 @@ class Deltas:
         if after.included:
             plus = self._plus
             plus[0].append(cid)
-            plus[1].append(p)
+            if self.n_classes:
+                plus[1].extend(orjson.loads(p))  # type: ignore[arg-type]
+            else:
+                plus[1].append(p)
             plus[2].append(after.y)
 
     def add_row(
@@ -130,17 +135,21 @@ class Deltas:
             counts[1] -= before.late
             counts[2] -= before.unlabelled
             if before.included:
-                minus = self._minus
-                minus[0].append(cid)
-                minus[1].append(p)
-                minus[2].append(before.y)
+                self._push(self._minus, cid, p, before.y)
         counts[1] += after.late
         counts[2] += after.unlabelled
         if after.included:
-            plus = self._plus
-            plus[0].append(cid)
-            plus[1].append(p)
-            plus[2].append(after.y)
+            self._push(self._plus, cid, p, after.y)
+
+    def _push(
+        self, entries: tuple[array[int], array[float], array[int]], cid: int, p: Any, y: int
+    ) -> None:
+        entries[0].append(cid)
+        if self.n_classes:
+            entries[1].extend(orjson.loads(p))
+        else:
+            entries[1].append(p)
+        entries[2].append(y)
 
     def apply_to(self, buckets: dict[BucketKey, Bucket]) -> dict[BucketKey, Bucket]:
         """The touched buckets after the deltas (``buckets`` holds their stored state)."""
@@ -151,13 +160,14 @@ class Deltas:
         flat = np.fromiter(chain.from_iterable(self._combo_buckets), np.intp)
         offsets = np.zeros(lens.size, np.intp)
         np.cumsum(lens[:-1], out=offsets[1:])
-        adds = _grouped(_expand(self._plus, lens, offsets, flat), n)
-        subs = _grouped(_expand(self._minus, lens, offsets, flat), n)
+        k = self.n_classes
+        adds = _grouped(_expand(self._plus, lens, offsets, flat, k), n, k)
+        subs = _grouped(_expand(self._minus, lens, offsets, flat, k), n, k)
         counts = np.zeros((n, 3), np.int64)
         np.add.at(counts, flat, np.repeat(np.asarray(self._counts, np.int64), lens, axis=0))
         out = {}
         for (key, i), c in zip(self.keys.items(), counts.tolist(), strict=True):
-            base = buckets.get(key) or Bucket(Sketch.empty())
+            base = buckets.get(key) or Bucket(empty_sketch(k))
             sketch = base.sketch
             if adds[i] is not None:
                 sketch = sketch + adds[i]
@@ -176,25 +186,35 @@ def _expand(
     lens: NDArray[np.intp],
     offsets: NDArray[np.intp],
     flat: NDArray[np.intp],
+    n_classes: int = 0,
 ) -> tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64]]:
-    """One entry per (row, bucket of its combination), rows in order, buckets in slice order."""
+    """One entry per (row, bucket of its combination), rows in order, buckets in slice order.
+
+    Multiclass: the probabilities come back as a matrix, one row per entry."""
     cids = np.frombuffer(entries[0], dtype=np.int64).astype(np.intp)
     reps = lens[cids]
     total = int(reps.sum())
     starts = np.cumsum(reps) - reps  # first expanded position of each row
     within = np.arange(total, dtype=np.intp) - np.repeat(starts, reps)
     groups = flat[np.repeat(offsets[cids], reps) + within]
-    ps = np.repeat(np.frombuffer(entries[1], dtype=np.float64), reps)
+    probs = np.frombuffer(entries[1], dtype=np.float64)
+    if n_classes:
+        probs = probs.reshape(-1, n_classes)
+    ps = np.repeat(probs, reps, axis=0)
     ys = np.repeat(np.frombuffer(entries[2], dtype=np.int64).astype(np.float64), reps)
     return groups, ps, ys
 
 
 def _grouped(
-    entries: tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64]], n: int
-) -> list[Sketch | None]:
+    entries: tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64]],
+    n: int,
+    n_classes: int = 0,
+) -> list[Any]:
     g, ps, ys = entries
     if not g.size:
         return [None] * n
+    if n_classes:
+        return multiclass.grouped(g, ps, ys.astype(np.int64), n, n_classes)
     sketches = Sketch.from_arrays_grouped(ys, ps, g, n)
     present = np.bincount(g, minlength=n) > 0
     return [s if present[i] else None for i, s in enumerate(sketches)]
@@ -255,6 +275,8 @@ def collect(
         else (0, 0, 0)
     )
     p1, _, _ = seqs
+    # Binary rows carry a number; multiclass rows a JSON array in class order.
+    prob = (p.probabilities if deltas.n_classes else p.probability).label("probability")
 
     def state(row: sa.Row[Any], outcome: int | None, observed: int | None) -> RowState:
         return classify(
@@ -269,7 +291,7 @@ def collect(
         sa.select(
             p.id,
             p.predicted_at_us,
-            p.probability,
+            prob,
             p.version,
             p.segments,
             o.outcome,
@@ -310,9 +332,7 @@ def collect(
     applied = sa.and_(p.id <= p0, p.predicted_at_us <= f0)
     # 3a. New outcomes of rows applied before (they were applied as "no outcome").
     new_outcomes = (
-        sa.select(
-            p.predicted_at_us, p.probability, p.version, p.segments, o.outcome, o.observed_at_us
-        )
+        sa.select(p.predicted_at_us, prob, p.version, p.segments, o.outcome, o.observed_at_us)
         .select_from(outcomes.join(predictions, p.id == o.prediction_id))
         .where(o.model_id == model_id, o.id > o0, applied)
     )
@@ -337,7 +357,7 @@ def collect(
     corrected = (
         sa.select(
             p.predicted_at_us,
-            p.probability,
+            prob,
             p.version,
             p.segments,
             o.outcome,

@@ -26,6 +26,7 @@ def immature_summary(
     frontier_us: int,
     as_of_us: int,
     max_prediction_id: int,
+    multiclass_model: bool = False,
 ) -> list[dict[str, Any]]:
     p, o = predictions.c, outcomes.c
     query = (
@@ -53,7 +54,7 @@ def immature_summary(
             t = totals[name]
             t[0] += 1
             t[1] += labelled
-            t[2] += prob
+            t[2] += prob or 0.0  # multiclass rows have no single probability
     out = []
     for name in sorted(totals, key=lambda n: (n != "overall", n.count(","), n)):
         n, labelled, sum_p = totals[name]
@@ -64,7 +65,11 @@ def immature_summary(
                 "end": format_instant(as_of_us),
                 "n": int(n),
                 "label_coverage": labelled / n,
-                "metrics": {"psi": None, "ks_statistic": None, "mean_predicted": sum_p / n},
+                "metrics": {
+                    "psi": None,
+                    "ks_statistic": None,
+                    "mean_predicted": sum_p / n if multiclass_model is False else None,
+                },
             }
         )
     return out

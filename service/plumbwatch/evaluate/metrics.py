@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from plumbwatch.evaluate import multiclass
 from plumbwatch.stats._result import Undefined
 from plumbwatch.stats.smooth import smooth_ece_from_sketch
 from plumbwatch.stats.summary import binary_metrics
@@ -14,19 +15,19 @@ from plumbwatch.store.sketches import Bucket
 _LATER = {"psi": "no_baseline", "ks_statistic": "no_baseline", "ks_p_value": "no_baseline"}
 
 
-def slice_metrics(bucket: Bucket) -> tuple[dict[str, Any], dict[str, str]]:
+def slice_metrics(
+    bucket: Bucket, classes: list[str] | None = None
+) -> tuple[dict[str, Any], dict[str, str]]:
+    """Binary metrics, or with ``classes`` the multiclass ones, plus the counts."""
+    if classes:
+        metrics, reasons = multiclass.slice_metrics(bucket.sketch, classes)
+        _counts(metrics, reasons, bucket)
+        return metrics, reasons
     values, reasons = binary_metrics(bucket.sketch)
-    metrics: dict[str, Any] = {k: (float(v) if v is not None else None) for k, v in values.items()}
+    metrics = {k: (float(v) if v is not None else None) for k, v in values.items()}
     metrics["n"] = round(bucket.sketch.n)
     metrics["events"] = round(bucket.sketch.events)
-    metrics["late"] = bucket.late
-    metrics["label_coverage"] = (
-        (bucket.matured - bucket.unlabelled - bucket.late) / bucket.matured
-        if bucket.matured
-        else None
-    )
-    if bucket.matured == 0:
-        reasons["label_coverage"] = "no_matured_rows"
+    _counts(metrics, reasons, bucket)
     if metrics["n"] > 0:
         try:
             metrics["ece_smooth"] = float(smooth_ece_from_sketch(bucket.sketch).value)
@@ -44,14 +45,30 @@ def slice_metrics(bucket: Bucket) -> tuple[dict[str, Any], dict[str, str]]:
     return metrics, reasons
 
 
-def health(metrics: dict[str, Any], *, matured: int, min_events: int) -> str:
+def _counts(metrics: dict[str, Any], reasons: dict[str, str], bucket: Bucket) -> None:
+    metrics["late"] = bucket.late
+    metrics["label_coverage"] = (
+        (bucket.matured - bucket.unlabelled - bucket.late) / bucket.matured
+        if bucket.matured
+        else None
+    )
+    if bucket.matured == 0:
+        reasons["label_coverage"] = "no_matured_rows"
+
+
+def health(bucket: Bucket, *, min_events: int, multiclass_model: bool = False) -> str:
     """``awaiting_labels`` with no matured rows, ``insufficient_data`` with fewer than
     ``min_events`` events or non-events (100 by default: a common rule of thumb,
-    Vergouwe et al. 2005; METHODS.md section 12), else ``ok``."""
-    if matured == 0 or metrics["n"] == 0:
+    Vergouwe et al. 2005; METHODS.md section 12), else ``ok``. Multiclass: correct
+    and incorrect top-label rows stand for events and non-events."""
+    if bucket.matured == 0 or round(bucket.sketch.n) == 0:
         return "awaiting_labels"
-    events = metrics["events"]
-    if min(events, metrics["n"] - events) < min_events:
+    if multiclass_model:
+        hits, misses = multiclass.verdict_counts(bucket.sketch)
+    else:
+        hits = round(bucket.sketch.events)
+        misses = round(bucket.sketch.n) - hits
+    if min(hits, misses) < min_events:
         return "insufficient_data"
     return "ok"
 

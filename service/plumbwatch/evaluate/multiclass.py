@@ -12,23 +12,18 @@ from typing import Any
 import numpy as np
 
 from plumbwatch.stats.multiclass import MulticlassSketch, multiclass_metrics
-from plumbwatch.stats.sketch import Sketch
 from plumbwatch.stats.summary import binary_metrics
 
 
-def empty(n_classes: int) -> MulticlassSketch:
-    return MulticlassSketch(tuple(Sketch.empty() for _ in range(n_classes)), Sketch.empty(),
-                            0.0, 0.0)
-
-
-def grouped(groups: list[int], probs: list[list[float]], ys: list[int], n_groups: int,
-            n_classes: int) -> list[MulticlassSketch | None]:
+def grouped(
+    groups: Any, probs: Any, ys: Any, n_groups: int, n_classes: int
+) -> list[MulticlassSketch | None]:
     """One sketch per group index (None where a group has no rows)."""
     out: list[MulticlassSketch | None] = [None] * n_groups
-    if not groups:
-        return out
     g = np.asarray(groups, dtype=np.intp)
-    p = np.asarray(probs, dtype=np.float64).reshape(len(groups), n_classes)
+    if not g.size:
+        return out
+    p = np.asarray(probs, dtype=np.float64).reshape(g.size, n_classes)
     y = np.asarray(ys, dtype=np.int64)
     order = np.argsort(g, kind="stable")
     g, p, y = g[order], p[order], y[order]
@@ -39,16 +34,18 @@ def grouped(groups: list[int], probs: list[list[float]], ys: list[int], n_groups
     return out
 
 
-def slice_metrics(sketch: MulticlassSketch, classes: list[str]
-                  ) -> tuple[dict[str, Any], dict[str, str]]:
+def slice_metrics(
+    sketch: MulticlassSketch, classes: list[str]
+) -> tuple[dict[str, Any], dict[str, str]]:
     """``n``, ``events_by_class``, ``log_loss``, ``brier`` (summed over classes, range
     [0, 2]), ``ece_top_label``, ``ece_classwise`` (15 equal-width bins), and each
     binary metric per class as ``class:<name>:<metric>`` (one-vs-rest)."""
     values, reasons = multiclass_metrics(sketch, n_bins=15)
     metrics: dict[str, Any] = dict(values)
     metrics["n"] = round(sketch.n)
-    metrics["events_by_class"] = {c: round(e) for c, e in zip(classes, sketch.events_by_class,
-                                                               strict=True)}
+    metrics["events_by_class"] = {
+        c: round(e) for c, e in zip(classes, sketch.events_by_class, strict=True)
+    }
     for name, per in zip(classes, sketch.per_class, strict=True):
         per_values, per_reasons = binary_metrics(per)
         for metric, value in per_values.items():

@@ -18,10 +18,11 @@ from plumbwatch.evaluate.cohorts import DAY_US, classify
 from plumbwatch.evaluate.immature import _frozen
 from plumbwatch.evaluate.metrics import slice_metrics
 from plumbwatch.evaluate.slices import OTHER, OVERALL, SliceSpec, ValueCap, parse_slice
+from plumbwatch.stats.multiclass import MulticlassSketch
 from plumbwatch.stats.sketch import Sketch
 from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.models import MonitoredModel
-from plumbwatch.store.sketches import Bucket
+from plumbwatch.store.sketches import Bucket, empty_sketch
 from plumbwatch.store.tables import outcomes, predictions
 
 
@@ -43,10 +44,16 @@ def range_metrics(
     frontier_us = cursor.as_of_us - horizon_us
     first_full = -(-start_us // DAY_US)  # first day starting at or after start
     end_full = end_us // DAY_US  # days before this end at or before end
-    total = Bucket(Sketch.empty())
+    k = len(model.classes)
+    total = Bucket(empty_sketch(k))
     if first_full < end_full:
         for (v, _day, name), b in store_sketches.load_buckets(
-            conn, model_id=model.id, day_from=first_full, day_to=end_full, slice_name=slice_name
+            conn,
+            model_id=model.id,
+            day_from=first_full,
+            day_to=end_full,
+            slice_name=slice_name,
+            n_classes=k,
         ).items():
             if name == slice_name and (version is None or v == version):
                 total = total + b
@@ -69,7 +76,7 @@ def range_metrics(
                 horizon_us=horizon_us,
                 max_ids=(cursor.prediction_seq, cursor.outcome_seq),
             )
-    metrics, reasons = slice_metrics(total)
+    metrics, reasons = slice_metrics(total, model.classes or None)
     return cursor.as_of_us, metrics, reasons
 
 
@@ -86,14 +93,13 @@ def _raw_bucket(
     horizon_us: int,
     max_ids: tuple[int, int],
 ) -> Bucket:
+    k = len(model.classes)
     if lo >= hi:
-        return Bucket(Sketch.empty())
-
+        return Bucket(empty_sketch(k))
     p, o = predictions.c, outcomes.c
+    prob = (p.probabilities if k else p.probability).label("probability")
     query = (
-        sa.select(
-            p.probability, p.version, p.segments, p.predicted_at_us, o.outcome, o.observed_at_us
-        )
+        sa.select(prob, p.version, p.segments, p.predicted_at_us, o.outcome, o.observed_at_us)
         .select_from(
             predictions.outerjoin(outcomes, sa.and_(o.prediction_id == p.id, o.id <= max_ids[1]))
         )
@@ -130,8 +136,11 @@ def _raw_bucket(
         unlabelled += state.unlabelled
         if state.included:
             ys.append(state.y)
-            ps.append(row.probability)
-    sketch = (
-        Sketch.from_arrays(np.asarray(ys, float), np.asarray(ps, float)) if ys else Sketch.empty()
-    )
+            ps.append(orjson.loads(row.probability) if k else row.probability)
+    if not ys:
+        return Bucket(empty_sketch(k), matured, late, unlabelled)
+    if k:
+        sketch: Any = MulticlassSketch.from_arrays(np.asarray(ys), np.asarray(ps, float))
+    else:
+        sketch = Sketch.from_arrays(np.asarray(ys, float), np.asarray(ps, float))
     return Bucket(sketch, matured, late, unlabelled)

@@ -46,12 +46,15 @@ def rebuild_model(
         seqs = deltas_mod.current_seqs(write, model_id=model.id)
         store_sketches.delete_model_state(write, model_id=model.id)
         cap = ValueCap(slice_cap)
-        deltas = deltas_mod.Deltas(spec, cap)
+        k = len(model.classes)
+        deltas = deltas_mod.Deltas(spec, cap, n_classes=k)
         total = 0
 
         def flush() -> None:
             nonlocal total
-            stored = store_sketches.load_buckets(write, model_id=model.id, keys=deltas.keys)
+            stored = store_sketches.load_buckets(
+                write, model_id=model.id, keys=deltas.keys, n_classes=k
+            )
             touched = deltas.apply_to(stored)
             store_sketches.save_buckets(
                 write, model_id=model.id, buckets=touched, existing=set(stored), now_us=now_us

@@ -20,13 +20,12 @@ from plumbwatch.evaluate.cohorts import DAY_US, Window, day_of, frontier, window
 from plumbwatch.evaluate.immature import immature_summary
 from plumbwatch.evaluate.metrics import health, slice_metrics, worst
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
-from plumbwatch.stats.sketch import Sketch
 from plumbwatch.store import evaluations as store_evaluations
 from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.engine import BEGIN_OPTION
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.store.retention import oldest_prediction_us
-from plumbwatch.store.sketches import Bucket, BucketKey, Cursor
+from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
 from plumbwatch.timefmt import format_instant, parse_duration
 
 
@@ -53,10 +52,7 @@ def evaluate_model(
 ) -> dict[str, Any]:
     """Run one evaluation as of ``as_of_us`` and persist its record; return the record."""
     decl = model.declaration
-    if decl.kind != "binary":
-        raise Conflict(
-            f"model {model.name!r} is multiclass; multiclass evaluation is not available yet"
-        )
+    k = len(model.classes)
     horizon_us = decl.label_horizon_seconds * 1_000_000
     spec = SliceSpec(keys=decl.segment_keys, crosses=decl.crosses)
     with _snapshot(engine) as conn, conn.begin():
@@ -64,7 +60,7 @@ def evaluate_model(
         cap = ValueCap(options.slice_cap, store_sketches.load_slice_values(conn, model_id=model.id))
         seqs = deltas_mod.current_seqs(conn, model_id=model.id)
         replay_backwards = previous is not None and as_of_us < previous.as_of_us
-        deltas = deltas_mod.Deltas(spec, cap)
+        deltas = deltas_mod.Deltas(spec, cap, n_classes=k)
         deltas_mod.collect(
             conn,
             model_id=model.id,
@@ -84,10 +80,12 @@ def evaluate_model(
             stored: dict[BucketKey, Bucket] = {}
         else:
             stored = store_sketches.load_buckets(
-                conn, model_id=model.id, day_from=first_day, day_to=end_day
+                conn, model_id=model.id, day_from=first_day, day_to=end_day, n_classes=k
             )
             outside = [k for k in deltas.keys if k not in stored]
-            stored.update(store_sketches.load_buckets(conn, model_id=model.id, keys=outside))
+            stored.update(
+                store_sketches.load_buckets(conn, model_id=model.id, keys=outside, n_classes=k)
+            )
         touched = deltas.apply_to(stored)
         immature = immature_summary(
             conn,
@@ -97,6 +95,7 @@ def evaluate_model(
             frontier_us=frontier(as_of_us, horizon_us),
             as_of_us=as_of_us,
             max_prediction_id=seqs[0],
+            multiclass_model=k > 0,
         )
         raw_from = oldest_prediction_us(conn, model_id=model.id)
     current = {**stored, **touched}
@@ -147,11 +146,11 @@ def _windows(names: list[str], *, frontier_us: int) -> list[Window]:
 
 
 def _sum(
-    buckets: dict[BucketKey, Bucket], w: Window
+    buckets: dict[BucketKey, Bucket], w: Window, n_classes: int
 ) -> tuple[dict[str, Bucket], dict[tuple[str, str], Bucket]]:
     """Per slice across versions, and per (version, slice), over the window's days."""
-    overall: dict[str, Bucket] = defaultdict(lambda: Bucket(Sketch.empty()))
-    by_version: dict[tuple[str, str], Bucket] = defaultdict(lambda: Bucket(Sketch.empty()))
+    overall: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
+    by_version: dict[tuple[str, str], Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
     for (version, day, name), b in buckets.items():
         if w.first_day <= day < w.end_day:
             overall[name] = overall[name] + b
@@ -160,13 +159,13 @@ def _sum(
 
 
 def _slice_entry(
-    name: str, bucket: Bucket, options: Options, version: str | None
+    name: str, bucket: Bucket, options: Options, version: str | None, classes: list[str]
 ) -> dict[str, Any]:
-    metrics, reasons = slice_metrics(bucket)
+    metrics, reasons = slice_metrics(bucket, classes or None)
     entry: dict[str, Any] = {
         "slice": name,
         "version": version,
-        "health": health(metrics, matured=bucket.matured, min_events=options.min_events),
+        "health": health(bucket, min_events=options.min_events, multiclass_model=bool(classes)),
         "metrics": metrics,
         "reasons": reasons,
     }
@@ -189,14 +188,17 @@ def _record(
     out_windows = []
     states = []
     for w in windows:
-        overall, by_version = _sum(buckets, w)
+        overall, by_version = _sum(buckets, w, len(model.classes))
         if "overall" not in overall:
-            overall["overall"] = Bucket(Sketch.empty())
+            overall["overall"] = Bucket(empty_sketch(len(model.classes)))
         versions = sorted({v for v, _ in by_version})
-        entries = [_slice_entry(name, overall[name], options, None) for name in _ordered(overall)]
+        entries = [
+            _slice_entry(name, overall[name], options, None, model.classes)
+            for name in _ordered(overall)
+        ]
         if len(versions) > 1:
             entries += [
-                _slice_entry(name, by_version[(v, name)], options, v)
+                _slice_entry(name, by_version[(v, name)], options, v, model.classes)
                 for v in versions
                 for name in _ordered({n for vv, n in by_version if vv == v})
             ]

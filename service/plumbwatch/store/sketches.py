@@ -8,17 +8,31 @@ from typing import Any
 
 import sqlalchemy as sa
 
+from plumbwatch.stats.multiclass import MulticlassSketch
 from plumbwatch.stats.sketch import Sketch
 from plumbwatch.store.tables import evaluation_cursors, sketches, slice_values
 
 BucketKey = tuple[str, int, str]  # (version, day, slice)
 
 
+def empty_sketch(n_classes: int = 0) -> Any:
+    """An empty sketch of the model's kind (0 classes: binary)."""
+    if n_classes:
+        return MulticlassSketch(
+            tuple(Sketch.empty() for _ in range(n_classes)), Sketch.empty(), 0.0, 0.0
+        )
+    return Sketch.empty()
+
+
+def _decode(data: bytes, n_classes: int) -> Any:
+    return MulticlassSketch.from_bytes(data) if n_classes else Sketch.from_bytes(data)
+
+
 @dataclass
 class Bucket:
     """A sketch with the counts that stay outside it."""
 
-    sketch: Sketch
+    sketch: Any  # stats.Sketch, or stats.multiclass.MulticlassSketch
     matured: int = 0
     late: int = 0
     unlabelled: int = 0
@@ -94,6 +108,7 @@ def load_buckets(
     day_from: int | None = None,
     day_to: int | None = None,
     slice_name: str | None = None,
+    n_classes: int = 0,
 ) -> dict[BucketKey, Bucket]:
     """Stored buckets: the given keys, or every bucket with day in [day_from, day_to)
     (of one slice if ``slice_name`` is given)."""
@@ -117,7 +132,7 @@ def load_buckets(
     for row in conn.execute(query):
         key = (row.version, row.day, row.slice)
         if wanted is None or key in wanted:
-            out[key] = Bucket(Sketch.from_bytes(row.data), row.matured, row.late, row.unlabelled)
+            out[key] = Bucket(_decode(row.data, n_classes), row.matured, row.late, row.unlabelled)
     return out
 
 
