@@ -29,7 +29,11 @@ digits = st.integers(min_value=0, max_value=99).map(lambda n: f"{n:02d}")
 timestamps = st.builds(
     lambda y, mo, d, h, mi, s, frac, sep, off: f"{y:04d}-{mo}-{d}{sep}{h}:{mi}:{s}{frac}{off}",
     st.integers(min_value=0, max_value=9999),
-    digits, digits, digits, digits, digits,
+    digits,
+    digits,
+    digits,
+    digits,
+    digits,
     st.sampled_from(["", ".5", ".123456", ".1234567", ".123456789", "."]),
     st.sampled_from(["T", "t", " ", "_"]),
     st.sampled_from(["Z", "z", "+02:00", "-23:59", "+24:00", "", "+0200", "Z\n"]),
@@ -52,8 +56,12 @@ def test_fast_instant_matches_the_full_parse(text: str) -> None:
 
 
 values = st.one_of(
-    st.none(), st.booleans(), st.integers(-2, 2), st.floats(allow_nan=True),
-    st.text(max_size=3), st.lists(st.integers(), max_size=1),
+    st.none(),
+    st.booleans(),
+    st.integers(-2, 2),
+    st.floats(allow_nan=True),
+    st.text(max_size=3),
+    st.lists(st.integers(), max_size=1),
 )
 rows = st.fixed_dictionaries(
     {"id": st.one_of(st.text(max_size=3), st.integers(), st.just("x" * 201))},

@@ -66,11 +66,15 @@ def live_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Live]:
             time.sleep(0.02)
         # A declared model with a few rows, so forced paths reach real validation and
         # real duplicates, not only 404s.
-        httpx.put(f"{url}/v1/models/{MODEL}", json=binary_model(), headers=headers,
-                  timeout=10).raise_for_status()
-        httpx.post(f"{url}/v1/models/{MODEL}/predictions",
-                   json={"predictions": [prediction(i) for i in range(3)]},
-                   headers=headers, timeout=10).raise_for_status()
+        httpx.put(
+            f"{url}/v1/models/{MODEL}", json=binary_model(), headers=headers, timeout=10
+        ).raise_for_status()
+        httpx.post(
+            f"{url}/v1/models/{MODEL}/predictions",
+            json={"predictions": [prediction(i) for i in range(3)]},
+            headers=headers,
+            timeout=10,
+        ).raise_for_status()
         yield Live(url, headers)
     finally:
         server.should_exit = True
@@ -116,6 +120,5 @@ def test_api_contract(operation: schemathesis.APIOperation, live_app: Live) -> N
         case.call_and_validate(
             base_url=live_app.url, headers=live_app.headers, checks=CHECKS, timeout=30
         )
-
 
     fuzz()

@@ -41,15 +41,33 @@ def test_multiclass_status_matches_scikit_learn(engine: Engine, digits) -> None:
     n = 600
     days = np.arange(n) % 10
     with running_service(engine) as svc:
-        svc.put_model("digits", {"kind": "multiclass", "classes": CLASSES,
-                                 "label_horizon": "P2D", "segment_keys": ["scanner"],
-                                 "windows": ["P28D"]})
-        preds = [{"id": f"r{i}", "predicted_at": format_instant(T0 + timedelta(days=int(days[i]))),
-                  "probabilities": dict(zip(CLASSES, map(float, p[i]), strict=True)),
-                  "segments": {"scanner": "a" if i % 2 else "b"}} for i in range(n)]
-        outs = [{"id": f"r{i}", "outcome": CLASSES[y[i]],
-                 "observed_at": format_instant(T0 + timedelta(days=int(days[i]), hours=5))}
-                for i in range(n)]
+        svc.put_model(
+            "digits",
+            {
+                "kind": "multiclass",
+                "classes": CLASSES,
+                "label_horizon": "P2D",
+                "segment_keys": ["scanner"],
+                "windows": ["P28D"],
+            },
+        )
+        preds = [
+            {
+                "id": f"r{i}",
+                "predicted_at": format_instant(T0 + timedelta(days=int(days[i]))),
+                "probabilities": dict(zip(CLASSES, map(float, p[i]), strict=True)),
+                "segments": {"scanner": "a" if i % 2 else "b"},
+            }
+            for i in range(n)
+        ]
+        outs = [
+            {
+                "id": f"r{i}",
+                "outcome": CLASSES[y[i]],
+                "observed_at": format_instant(T0 + timedelta(days=int(days[i]), hours=5)),
+            }
+            for i in range(n)
+        ]
         assert svc.post("/v1/models/digits/predictions", {"predictions": preds}).status_code == 200
         assert svc.post("/v1/models/digits/outcomes", {"outcomes": outs[:500]}).status_code == 200
         first = svc.post("/v1/models/digits/evaluations", {"as_of": "2026-04-20T00:00:00Z"})
@@ -59,21 +77,24 @@ def test_multiclass_status_matches_scikit_learn(engine: Engine, digits) -> None:
         wrong = dict(outs[3], outcome=CLASSES[(y[3] + 1) % 10])
         r = svc.post("/v1/models/digits/outcomes?correction=true", {"outcomes": [wrong]})
         assert r.json()["corrections"] == 1
-        record = svc.post("/v1/models/digits/evaluations",
-                          {"as_of": "2026-04-20T01:00:00Z"}).json()
+        record = svc.post("/v1/models/digits/evaluations", {"as_of": "2026-04-20T01:00:00Z"}).json()
         with engine.connect() as conn:
-            incremental = {(r.version, r.day, r.slice): r.data for r in
-                           conn.execute(sa.select(sketches))}
+            incremental = {
+                (r.version, r.day, r.slice): r.data for r in conn.execute(sa.select(sketches))
+            }
             model = get(conn=conn, name="digits")
         assert model is not None
         rebuild_model(engine, model, now_us=0, slice_cap=50)
         with engine.connect() as conn:
-            rebuilt = {(r.version, r.day, r.slice): r.data for r in
-                       conn.execute(sa.select(sketches))}
+            rebuilt = {
+                (r.version, r.day, r.slice): r.data for r in conn.execute(sa.select(sketches))
+            }
     assert incremental.keys() == rebuilt.keys()
     for key in incremental:
-        a, b = MulticlassSketch.from_bytes(incremental[key]), MulticlassSketch.from_bytes(
-            rebuilt[key])
+        a, b = (
+            MulticlassSketch.from_bytes(incremental[key]),
+            MulticlassSketch.from_bytes(rebuilt[key]),
+        )
         assert a.sum_log_loss == pytest.approx(b.sum_log_loss, rel=1e-9)
         assert a.top.allclose(b.top)
     y_now = y[:n].copy()
@@ -85,8 +106,9 @@ def test_multiclass_status_matches_scikit_learn(engine: Engine, digits) -> None:
     assert m["log_loss"] == pytest.approx(log_loss(y_now, p[:n], labels=range(10)), rel=1e-9)
     # Brier summed over classes, range [0, 2] (METHODS.md 1.2), by hand.
     onehot = np.eye(10)[y_now]
-    assert m["brier"] == pytest.approx(float(np.mean(np.sum((p[:n] - onehot) ** 2, axis=1))),
-                                       rel=1e-9)
+    assert m["brier"] == pytest.approx(
+        float(np.mean(np.sum((p[:n] - onehot) ** 2, axis=1))), rel=1e-9
+    )
     # The raw-array functions, themselves checked against METHODS.md C4.
     assert m["ece_top_label"] == pytest.approx(top_label_ece(y_now, p[:n], n_bins=15), abs=1e-12)
     assert m["ece_classwise"] == pytest.approx(classwise_ece(y_now, p[:n], n_bins=15), abs=1e-12)

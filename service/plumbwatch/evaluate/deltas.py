@@ -16,7 +16,7 @@ So the work is proportional to what changed, never to the size of a window.
 from __future__ import annotations
 
 from array import array
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 from itertools import chain
 from typing import Any
@@ -151,7 +151,7 @@ class Deltas:
             entries[1].append(p)
         entries[2].append(y)
 
-    def apply_to(self, buckets: dict[BucketKey, Bucket]) -> dict[BucketKey, Bucket]:
+    def apply_to(self, buckets: Mapping[BucketKey, Bucket]) -> dict[BucketKey, Bucket]:
         """The touched buckets after the deltas (``buckets`` holds their stored state)."""
         n = len(self.keys)
         if n == 0:
@@ -276,7 +276,7 @@ def collect(
     )
     p1, _, _ = seqs
     # Binary rows carry a number; multiclass rows a JSON array in class order.
-    prob = (p.probabilities if deltas.n_classes else p.probability).label("probability")
+    prob_col = p.probabilities if deltas.n_classes else p.probability
 
     def state(row: sa.Row[Any], outcome: int | None, observed: int | None) -> RowState:
         return classify(
@@ -291,7 +291,7 @@ def collect(
         sa.select(
             p.id,
             p.predicted_at_us,
-            prob,
+            prob_col,
             p.version,
             p.segments,
             o.outcome,
@@ -332,7 +332,7 @@ def collect(
     applied = sa.and_(p.id <= p0, p.predicted_at_us <= f0)
     # 3a. New outcomes of rows applied before (they were applied as "no outcome").
     new_outcomes = (
-        sa.select(p.predicted_at_us, prob, p.version, p.segments, o.outcome, o.observed_at_us)
+        sa.select(p.predicted_at_us, prob_col, p.version, p.segments, o.outcome, o.observed_at_us)
         .select_from(outcomes.join(predictions, p.id == o.prediction_id))
         .where(o.model_id == model_id, o.id > o0, applied)
     )
@@ -341,7 +341,7 @@ def collect(
             version=row.version,
             predicted_at_us=row.predicted_at_us,
             segments=row.segments,
-            p=row.probability,
+            p=row[1],  # prob_col
             before=state(row, None, None),
             after=state(row, row.outcome, row.observed_at_us),
         )
@@ -357,7 +357,7 @@ def collect(
     corrected = (
         sa.select(
             p.predicted_at_us,
-            prob,
+            prob_col,
             p.version,
             p.segments,
             o.outcome,
@@ -377,7 +377,7 @@ def collect(
             version=row.version,
             predicted_at_us=row.predicted_at_us,
             segments=row.segments,
-            p=row.probability,
+            p=row[1],  # prob_col
             before=state(row, row.old_outcome, row.old_observed),
             after=state(row, row.outcome, row.observed_at_us),
         )

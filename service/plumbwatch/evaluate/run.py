@@ -7,7 +7,7 @@ run or nothing. Callers hold the model's lease (see ``plumbwatch.jobs``).
 
 from __future__ import annotations
 
-from collections import defaultdict
+from collections import ChainMap, defaultdict
 from dataclasses import dataclass
 from typing import Any
 
@@ -27,6 +27,8 @@ from plumbwatch.store.models import MonitoredModel
 from plumbwatch.store.retention import oldest_prediction_us
 from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
 from plumbwatch.timefmt import format_instant, parse_duration
+
+_FLUSH_ROWS = 200_000
 
 
 @dataclass(frozen=True)
@@ -60,7 +62,36 @@ def evaluate_model(
         cap = ValueCap(options.slice_cap, store_sketches.load_slice_values(conn, model_id=model.id))
         seqs = deltas_mod.current_seqs(conn, model_id=model.id)
         replay_backwards = previous is not None and as_of_us < previous.as_of_us
+        windows = _windows(decl.windows, frontier_us=frontier(as_of_us, horizon_us))
+        if replay_backwards:
+            # Answered from raw rows (the deltas start from nothing); the stored
+            # state, which is further ahead, stays as it is.
+            stored: dict[BucketKey, Bucket] = {}
+        else:
+            stored = store_sketches.load_buckets(
+                conn,
+                model_id=model.id,
+                day_from=min(w.first_day for w in windows),
+                day_to=max(w.end_day for w in windows),
+                n_classes=k,
+            )
         deltas = deltas_mod.Deltas(spec, cap, n_classes=k)
+        touched: dict[BucketKey, Bucket] = {}
+        rows_applied = 0
+
+        def flush() -> None:
+            # Apply what is pending, so memory stays bounded on a first run over
+            # millions of rows; buckets outside the windows are loaded as needed.
+            nonlocal rows_applied
+            if not replay_backwards:
+                missing = [key for key in deltas.keys if key not in touched and key not in stored]
+                stored.update(
+                    store_sketches.load_buckets(conn, model_id=model.id, keys=missing, n_classes=k)
+                )
+            touched.update(deltas.apply_to(ChainMap(touched, stored)))
+            rows_applied += deltas.rows
+            deltas.reset()
+
         deltas_mod.collect(
             conn,
             model_id=model.id,
@@ -70,23 +101,9 @@ def evaluate_model(
             as_of_us=as_of_us,
             seqs=seqs,
             deltas=deltas,
+            flush=(_FLUSH_ROWS, flush),
         )
-        windows = _windows(decl.windows, frontier_us=frontier(as_of_us, horizon_us))
-        first_day = min(w.first_day for w in windows)
-        end_day = max(w.end_day for w in windows)
-        if replay_backwards:
-            # Answered from raw rows (the deltas above started from nothing); the
-            # stored state, which is further ahead, stays as it is.
-            stored: dict[BucketKey, Bucket] = {}
-        else:
-            stored = store_sketches.load_buckets(
-                conn, model_id=model.id, day_from=first_day, day_to=end_day, n_classes=k
-            )
-            outside = [k for k in deltas.keys if k not in stored]
-            stored.update(
-                store_sketches.load_buckets(conn, model_id=model.id, keys=outside, n_classes=k)
-            )
-        touched = deltas.apply_to(stored)
+        flush()
         immature = immature_summary(
             conn,
             model_id=model.id,
@@ -108,7 +125,7 @@ def evaluate_model(
         as_of_us=as_of_us,
         now_us=now_us,
         options=options,
-        rows_applied=deltas.rows,
+        rows_applied=rows_applied,
         raw_from=raw_from,
     )
     write = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
