@@ -220,7 +220,7 @@ def _grouped(
     return [s if present[i] else None for i, s in enumerate(sketches)]
 
 
-def _rows(conn: sa.Connection, query: sa.Select[Any]) -> Iterator[sa.Row[Any]]:
+def _rows(conn: sa.Connection, query: sa.Select[Any]) -> Iterator[Any]:
     yield from conn.execute(query.execution_options(yield_per=_CHUNK))
 
 
