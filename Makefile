@@ -37,6 +37,7 @@ test-fast: $(STAMP)
 bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_stats.py
 	$(BIN)/python tests/benchmarks/bench_ingest.py
+	$(BIN)/python tests/benchmarks/bench_evaluate.py --engine sqlite
 
 demo: $(STAMP)
 	mkdir -p var
