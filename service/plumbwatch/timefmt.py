@@ -82,17 +82,3 @@ def parse_duration(text: str) -> timedelta:
         minutes=parts.get("minutes", 0),
         seconds=parts.get("seconds", 0),
     )
-
-
-def format_duration(value: timedelta) -> str:
-    """The shortest ISO 8601 day/time spelling of a duration."""
-    total = int(value.total_seconds())
-    if total <= 0:
-        return "PT0S"
-    days, rest = divmod(total, 86_400)
-    hours, rest = divmod(rest, 3_600)
-    minutes, seconds = divmod(rest, 60)
-    out = "P" + (f"{days}D" if days else "")
-    clock = (f"{hours}H" if hours else "") + (f"{minutes}M" if minutes else "")
-    clock += f"{seconds}S" if seconds else ""
-    return out + ("T" + clock if clock else "")

@@ -41,7 +41,7 @@ def immature_summary(
     )
     totals: dict[str, list[float]] = defaultdict(lambda: [0, 0, 0.0])  # n, labelled, sum p
     names_of: dict[str | None, list[str]] = {}
-    frozen = _frozen(cap)
+    frozen = frozen_view(cap)
     for prob, segments, observed in conn.execute(query.execution_options(yield_per=50_000)):
         names = names_of.get(segments)
         if names is None:
@@ -75,6 +75,6 @@ def immature_summary(
     return out
 
 
-def _frozen(cap: ValueCap) -> ValueCap:
+def frozen_view(cap: ValueCap) -> ValueCap:
     """A view of the cap that folds unknown values into ``other`` without adding them."""
     return ValueCap(cap=0, kept={k: dict(v) for k, v in cap.kept.items()})

@@ -15,7 +15,7 @@ import sqlalchemy as sa
 
 from plumbwatch.errors import NotFound
 from plumbwatch.evaluate.cohorts import DAY_US, classify
-from plumbwatch.evaluate.immature import _frozen
+from plumbwatch.evaluate.immature import frozen_view
 from plumbwatch.evaluate.metrics import slice_metrics
 from plumbwatch.evaluate.slices import OTHER, OVERALL, SliceSpec, ValueCap, parse_slice
 from plumbwatch.stats.multiclass import MulticlassSketch
@@ -68,7 +68,7 @@ def range_metrics(
                 conn,
                 model,
                 spec,
-                _frozen(cap),
+                frozen_view(cap),
                 lo=lo,
                 hi=min(hi, frontier_us + 1),
                 slice_name=slice_name,

@@ -16,7 +16,7 @@ from sqlalchemy.engine import Engine
 
 from plumbwatch.errors import Conflict
 from plumbwatch.evaluate import deltas as deltas_mod
-from plumbwatch.evaluate.cohorts import DAY_US, Window, day_of, frontier, window
+from plumbwatch.evaluate.cohorts import Window, frontier, window
 from plumbwatch.evaluate.immature import immature_summary
 from plumbwatch.evaluate.metrics import health, slice_metrics, worst
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
@@ -248,4 +248,4 @@ def _ordered(names: Any) -> list[str]:
     return sorted(names, key=lambda n: (n != "overall", n.count(","), n))
 
 
-__all__ = ["DAY_US", "Options", "day_of", "evaluate_model"]
+__all__ = ["Options", "evaluate_model"]

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from itertools import product
 from urllib.parse import quote, unquote
 
 OVERALL = "overall"
@@ -84,14 +83,3 @@ class SliceSpec:
             if all(k in values for k in cross):
                 out.append(slice_name((k, values[k]) for k in cross))
         return out
-
-
-def all_crosses(spec: SliceSpec, cap: ValueCap) -> list[str]:
-    """All slice names the kept values can form (for listing empty slices)."""
-    out = [OVERALL]
-    for key in spec.keys:
-        out += [slice_name([(key, v)]) for v in cap.kept.get(key, {})]
-    for cross in spec.crosses:
-        pools = [list(cap.kept.get(k, {})) for k in cross]
-        out += [slice_name(zip(cross, combo, strict=True)) for combo in product(*pools)]
-    return out

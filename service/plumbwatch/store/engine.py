@@ -11,10 +11,6 @@ from sqlalchemy.engine import Engine, make_url
 BEGIN_OPTION = "plumbwatch_begin"
 
 
-def is_sqlite(engine: Engine | sa.Connection) -> bool:
-    return engine.dialect.name == "sqlite"
-
-
 def create_engine(url: str, *, busy_timeout_ms: int = 30_000, **kwargs: Any) -> Engine:
     """Create the engine with the SQLite pragmas of DESIGN.md, or a PostgreSQL pool.
 

@@ -8,7 +8,7 @@ from fastapi import APIRouter
 from plumbwatch.api.deps import EngineDep
 from plumbwatch.api.responses import JsonResponse
 from plumbwatch.api.schemas import HealthRead, errors
-from plumbwatch.errors import PlumbwatchError, SchemaBehindError
+from plumbwatch.errors import PlumbwatchError
 from plumbwatch.store.migrate import require_current
 
 router = APIRouter(tags=["health"])
@@ -24,9 +24,7 @@ def healthz() -> JsonResponse:
 def readyz(engine: EngineDep) -> JsonResponse:
     """The database answers and its schema is current."""
     try:
-        require_current(engine)
-    except SchemaBehindError:
-        raise
+        require_current(engine)  # SchemaBehindError answers 503 with the fixing command
     except sa.exc.SQLAlchemyError as exc:
         raise _Unavailable(f"database unreachable: {type(exc).__name__}") from None
     return JsonResponse({"status": "ready"})
