@@ -151,10 +151,12 @@ def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
                 raise ValueError("--as-of needs --model (a replay is per model)")
             with engine.connect() as conn:
                 model = get_or_raise(conn=conn, name=args.model)
-            record = evaluator.evaluate(model, as_of_us=as_of_us, now_us=now_us)
+            record = evaluator.evaluate(
+                model, as_of_us=as_of_us, now_us=now_us, notify=not args.no_notify
+            )
             print(f"{model.name}: {record['health']} as of {record['as_of']}")
             return 0
-        results = evaluator.tick(now_us=now_us, model_name=args.model)
+        results = evaluator.tick(now_us=now_us, model_name=args.model, notify=not args.no_notify)
     for name, outcome in results.items():
         print(f"{name}: {outcome}")
     if not results:

@@ -8,6 +8,7 @@ run or nothing. Callers hold the model's lease (see ``plumbwatch.jobs``).
 from __future__ import annotations
 
 from collections import ChainMap, defaultdict
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -37,6 +38,13 @@ class Options:
     min_events: int = 100
 
 
+# Called inside the run's write transaction, after the record is stored, with
+# (connection, model, evaluation id, record, notify). It may change the record
+# (health, alerts), which is then stored again in the same transaction, so later
+# layers (alerts) commit or fail together with the evaluation they act on.
+AfterRecord = Callable[[sa.Connection, MonitoredModel, int, dict[str, Any], bool], None]
+
+
 def _snapshot(engine: Engine) -> sa.Connection:
     conn = engine.connect()
     if conn.dialect.name == "postgresql":
@@ -51,8 +59,13 @@ def evaluate_model(
     as_of_us: int,
     now_us: int,
     options: Options = Options(),
+    notify: bool = True,
+    after_record: AfterRecord | None = None,
 ) -> dict[str, Any]:
-    """Run one evaluation as of ``as_of_us`` and persist its record; return the record."""
+    """Run one evaluation as of ``as_of_us`` and persist its record; return the record.
+
+    ``notify`` is handed to ``after_record`` (False: a backfill that must not page).
+    """
     decl = model.declaration
     k = len(model.classes)
     horizon_us = decl.label_horizon_seconds * 1_000_000
@@ -144,7 +157,7 @@ def evaluate_model(
             store_sketches.save_cursor(
                 write, model_id=model.id, cursor=Cursor(as_of_us, *seqs), now_us=now_us
             )
-        store_evaluations.create(
+        evaluation_id = store_evaluations.create(
             write,
             model_id=model.id,
             as_of_us=as_of_us,
@@ -152,6 +165,11 @@ def evaluate_model(
             health=record["health"],
             record=record,
         )
+        if after_record is not None:
+            after_record(write, model, evaluation_id, record, notify)
+            store_evaluations.update_record(
+                write, evaluation_id=evaluation_id, health=record["health"], record=record
+            )
     return record
 
 
@@ -248,4 +266,4 @@ def _ordered(names: Any) -> list[str]:
     return sorted(names, key=lambda n: (n != "overall", n.count(","), n))
 
 
-__all__ = ["Options", "evaluate_model"]
+__all__ = ["AfterRecord", "Options", "evaluate_model"]

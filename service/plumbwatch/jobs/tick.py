@@ -18,7 +18,7 @@ from sqlalchemy.engine import Engine
 
 from plumbwatch.errors import Conflict, PlumbwatchError
 from plumbwatch.evaluate.cohorts import DAY_US
-from plumbwatch.evaluate.run import Options, evaluate_model
+from plumbwatch.evaluate.run import AfterRecord, Options, evaluate_model
 from plumbwatch.store import evaluations as store_evaluations
 from plumbwatch.store import models as store_models
 from plumbwatch.store import retention
@@ -40,10 +40,14 @@ class Evaluator:
     holder: str
     options: Options = field(default_factory=Options)
     retention_days: int | None = None
+    # Runs inside each evaluation's write transaction (the alerts layer plugs in here).
+    after_record: AfterRecord | None = None
 
-    def evaluate(self, model: MonitoredModel, *, as_of_us: int, now_us: int) -> dict[str, Any]:
+    def evaluate(
+        self, model: MonitoredModel, *, as_of_us: int, now_us: int, notify: bool = True
+    ) -> dict[str, Any]:
         """Evaluate under the model's lease; Conflict if another server holds it."""
-        record = self._evaluate(model, as_of_us=as_of_us, now_us=now_us)
+        record = self._evaluate(model, as_of_us=as_of_us, now_us=now_us, notify=notify)
         assert record is not None
         return record
 
@@ -54,6 +58,7 @@ class Evaluator:
         as_of_us: int,
         now_us: int,
         unless_done_since: int | None = None,
+        notify: bool = True,
     ) -> dict[str, Any] | None:
         """With ``unless_done_since``: None when a record with an as_of at or after it
         exists already (another server ran this tick)."""
@@ -73,7 +78,13 @@ class Evaluator:
                 if last is not None and last >= unless_done_since:
                     return None
             return evaluate_model(
-                self.engine, model, as_of_us=as_of_us, now_us=now_us, options=self.options
+                self.engine,
+                model,
+                as_of_us=as_of_us,
+                now_us=now_us,
+                options=self.options,
+                notify=notify,
+                after_record=self.after_record,
             )
         finally:
             with self.engine.begin() as conn:
@@ -98,7 +109,12 @@ class Evaluator:
                 return total
 
     def tick(
-        self, *, now_us: int, model_name: str | None = None, interval_us: int | None = None
+        self,
+        *,
+        now_us: int,
+        model_name: str | None = None,
+        interval_us: int | None = None,
+        notify: bool = True,
     ) -> dict[str, str]:
         """Evaluate every active model (or one); returns model -> outcome.
 
@@ -122,6 +138,7 @@ class Evaluator:
                     as_of_us=as_of_us,
                     now_us=now_us,
                     unless_done_since=as_of_us if interval_us else None,
+                    notify=notify,
                 )
             except PlumbwatchError as exc:
                 log.warning("evaluation of %s skipped: %s", model.name, exc.message)

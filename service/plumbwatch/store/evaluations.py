@@ -33,6 +33,16 @@ def create(
     return int(result.scalar_one())
 
 
+def update_record(
+    conn: sa.Connection, *, evaluation_id: int, health: str, record: dict[str, Any]
+) -> None:
+    conn.execute(
+        sa.update(evaluations)
+        .where(evaluations.c.id == evaluation_id)
+        .values(health=health, record=orjson.dumps(record).decode())
+    )
+
+
 def latest(conn: sa.Connection, *, model_id: int) -> dict[str, Any] | None:
     row = conn.execute(
         sa.select(evaluations.c.record)

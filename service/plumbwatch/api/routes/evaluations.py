@@ -77,7 +77,9 @@ async def post_evaluation(
     def run() -> dict[str, Any]:
         with state.engine.connect() as conn:
             found = store_models.get_or_raise(conn=conn, name=model)
-        return state.evaluator.evaluate(found, as_of_us=as_of_us, now_us=now_us)
+        return state.evaluator.evaluate(
+            found, as_of_us=as_of_us, now_us=now_us, notify=data.get("notify", True)
+        )
 
     return JsonResponse(await run_in_threadpool(run))
 
