@@ -73,11 +73,29 @@ class Settings(BaseSettings):
     min_events: int = Field(
         100, ge=1, description="events and non-events a slice needs for a verdict"
     )
+    evidence_alpha: float = Field(
+        0.01, gt=0, lt=1, description="paging threshold of evidence: K / alpha for K slices"
+    )
+    fdr_alpha: float = Field(
+        0.05, gt=0, lt=1, description="per-run false discovery rate; discoveries set `watch`"
+    )
+    materiality_ece: float = Field(
+        0.03, ge=0, description="ece_debiased at or above this is material"
+    )
+    materiality_log_oe: float = Field(
+        0.1, ge=0, description="|ln O/E| at or above this is material"
+    )
+    evidence_grace: str = Field(
+        "P1D", description="evidence waits this long past maturity for late-posted outcomes"
+    )
+    cusum_arl0: int = Field(
+        10_000, ge=100, description="in-control mean run length of each slice's CUSUM, rows"
+    )
     models: dict[str, dict[str, Any]] = Field(
         default_factory=dict, description="model declarations from the TOML file"
     )
 
-    @field_validator("future_tolerance", "evaluation_interval")
+    @field_validator("future_tolerance", "evaluation_interval", "evidence_grace")
     @classmethod
     def _duration(cls, value: str) -> str:
         parse_duration(value)
@@ -98,6 +116,10 @@ class Settings(BaseSettings):
     @property
     def evaluation_interval_seconds(self) -> float:
         return parse_duration(self.evaluation_interval).total_seconds()
+
+    @property
+    def evidence_grace_micros(self) -> int:
+        return int(parse_duration(self.evidence_grace).total_seconds() * 1_000_000)
 
     @property
     def future_tolerance_micros(self) -> int:

@@ -254,7 +254,13 @@ def test_positives_labelled_first_do_not_bias_matured_windows(engine: Engine) ->
     assert overall["oe_ratio_low"] <= 1.0 <= overall["oe_ratio_high"]
     assert overall["label_coverage"] == 1.0
     immature = {e["slice"]: e for e in record["immature"]}
-    assert set(immature["overall"]["metrics"]) == {"psi", "ks_statistic", "mean_predicted"}
+    assert set(immature["overall"]["metrics"]) == {
+        "psi",
+        "psi_threshold",
+        "ks_statistic",
+        "ks_p_value",
+        "mean_predicted",
+    }
     assert immature["overall"]["label_coverage"] < 0.5  # mostly negatives, not labelled yet
     assert immature["overall"]["n"] == 3 * 150
 

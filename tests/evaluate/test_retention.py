@@ -33,16 +33,17 @@ def test_prune_keeps_sketches_and_unapplied_rows(engine: Engine) -> None:
         evaluator = Evaluator(engine, "test", retention_days=2)
         now = to_micros(T0 + timedelta(days=30))
         pruned = evaluator.prune(model, now_us=now, batch=25)
-        # Only rows before the maturity frontier (day 5) go, however old the cut-off.
-        assert pruned == 5 * 30
-        assert count(engine, predictions) == before["predictions"] - 150
-        assert count(engine, outcomes) == 10 * 30 - 150
+        # Only rows the evidence has been fed go, however old the cut-off: the maturity
+        # frontier (day 5) less the evidence grace (one day) is day 4.
+        assert pruned == 4 * 30
+        assert count(engine, predictions) == before["predictions"] - 120
+        assert count(engine, outcomes) == 10 * 30 - 120
         keys = count(engine, row_keys) + count(engine, row_keys_recent)
-        assert keys == 2 * (10 * 30 - 150)
+        assert keys == 2 * (10 * 30 - 120)
         assert count(engine, sketches) == before["sketches"]
         later = evaluate(svc, T0 + timedelta(days=8, hours=1))
     assert record["raw_rows_from"].startswith("2026-05-01")
-    assert later["raw_rows_from"].startswith("2026-05-06")  # how far back raw rows reach
+    assert later["raw_rows_from"].startswith("2026-05-05")  # how far back raw rows reach
 
 
 def test_rows_older_than_retention_are_refused(engine: Engine) -> None:

@@ -64,7 +64,7 @@ def create_app(
     app.state.evaluator = Evaluator(
         engine,
         holder_name(),
-        Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
+        Options.from_settings(settings),
         retention_days=settings.retention_days,
     )
     errors.install(app)

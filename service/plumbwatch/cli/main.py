@@ -144,7 +144,7 @@ def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
         evaluator = Evaluator(
             engine,
             holder_name(),
-            Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
+            Options.from_settings(settings),
         )
         if args.as_of:
             if not args.model:

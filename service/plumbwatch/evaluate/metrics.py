@@ -10,9 +10,17 @@ from plumbwatch.stats.smooth import smooth_ece_from_sketch
 from plumbwatch.stats.summary import binary_metrics
 from plumbwatch.store.sketches import Bucket
 
-# Later layers (score drift against the baseline) fill these; until then they are
-# null with this reason, never a made-up number.
-_LATER = {"psi": "no_baseline", "ks_statistic": "no_baseline", "ks_p_value": "no_baseline"}
+# An evaluation run fills these (score drift against the version's baseline, the
+# slice's evidence stream: evaluate/assess.py); elsewhere (metrics for any range)
+# they are null with this reason, never a made-up number.
+_RUN_ONLY = (
+    "psi",
+    "psi_threshold",
+    "ks_statistic",
+    "ks_p_value",
+    "log_evidence",
+    "log_threshold",
+)
 
 
 def slice_metrics(
@@ -39,9 +47,9 @@ def slice_metrics(
         reasons["ece_smooth"] = "no_rows"
     if metrics.get("hl_df") is not None:
         metrics["hl_df"] = int(metrics["hl_df"])
-    for name, reason in _LATER.items():
+    for name in _RUN_ONLY:
         metrics[name] = None
-        reasons[name] = reason
+        reasons[name] = "evaluation_runs_only"
     return metrics, reasons
 
 

@@ -1,8 +1,11 @@
 """One evaluation run of one model: apply the deltas, sum the windows, persist the record.
 
-The run reads in one snapshot, computes, then writes sketches, cursor and the
-evaluation record in one short transaction, so a crash leaves either the whole
-run or nothing. Callers hold the model's lease (see ``plumbwatch.jobs``).
+The run reads in one snapshot, computes, then writes sketches, cursor, evidence
+streams and the evaluation record in one short transaction, so a crash leaves
+either the whole run or nothing. Callers hold the model's lease (see
+``plumbwatch.jobs``). Evidence, score drift, false-discovery control, health and
+recalibration advice are ``evaluate/evidence.py``, ``drift.py``, ``fdr.py``,
+``verdicts.py`` and ``advice.py``, brought together by ``assess.py``.
 """
 
 from __future__ import annotations
@@ -15,13 +18,19 @@ from typing import Any
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
+from plumbwatch.config import Settings
 from plumbwatch.errors import Conflict
+from plumbwatch.evaluate import advice, advice_multiclass, drift
 from plumbwatch.evaluate import deltas as deltas_mod
+from plumbwatch.evaluate import evidence as evidence_mod
+from plumbwatch.evaluate.assess import Assessment
 from plumbwatch.evaluate.cohorts import Window, frontier, window
-from plumbwatch.evaluate.immature import immature_summary
+from plumbwatch.evaluate.immature import frozen_view, immature_summary
 from plumbwatch.evaluate.metrics import health, slice_metrics, worst
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
+from plumbwatch.evaluate.verdicts import Tolerances
 from plumbwatch.store import evaluations as store_evaluations
+from plumbwatch.store import evidence as store_evidence
 from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.engine import BEGIN_OPTION
 from plumbwatch.store.models import MonitoredModel
@@ -36,6 +45,33 @@ _FLUSH_ROWS = 200_000
 class Options:
     slice_cap: int = 50
     min_events: int = 100
+    evidence_alpha: float = 0.01  # paging threshold K / alpha for K slices
+    fdr_alpha: float = 0.05  # per-run FDR, sets `watch` only
+    materiality_ece: float = 0.03  # on ece_debiased
+    materiality_log_oe: float = 0.1  # on |ln O/E|
+    evidence_grace_us: int = 86_400 * 1_000_000  # see evaluate/evidence.py
+    cusum_arl0: int = 10_000  # in-control mean run length of a slice's CUSUM pair, rows
+    # Off: no evidence, drift, FDR or advice (health from data volume alone); for
+    # benchmarks that measure what they cost.
+    evidence: bool = True
+
+    @property
+    def tolerances(self) -> Tolerances:
+        return Tolerances(self.materiality_ece, self.materiality_log_oe)
+
+    @classmethod
+    def from_settings(cls, settings: Settings, **overrides: Any) -> Options:
+        values: dict[str, Any] = {
+            "slice_cap": settings.slice_cap,
+            "min_events": settings.min_events,
+            "evidence_alpha": settings.evidence_alpha,
+            "fdr_alpha": settings.fdr_alpha,
+            "materiality_ece": settings.materiality_ece,
+            "materiality_log_oe": settings.materiality_log_oe,
+            "evidence_grace_us": settings.evidence_grace_micros,
+            "cusum_arl0": settings.cusum_arl0,
+        }
+        return cls(**{**values, **overrides})
 
 
 # Called inside the run's write transaction, after the record is stored, with
@@ -117,7 +153,10 @@ def evaluate_model(
             flush=(_FLUSH_ROWS, flush),
         )
         flush()
-        immature = immature_summary(
+        version_now = drift.current_version(
+            conn, model_id=model.id, as_of_us=as_of_us, max_id=seqs[0]
+        )
+        immature, immature_scores = immature_summary(
             conn,
             model_id=model.id,
             spec=spec,
@@ -126,9 +165,17 @@ def evaluate_model(
             as_of_us=as_of_us,
             max_prediction_id=seqs[0],
             multiclass_model=k > 0,
+            version=version_now,
         )
         raw_from = oldest_prediction_us(conn, model_id=model.id)
-    current = {**stored, **touched}
+        current = {**stored, **touched}
+        assessment = _assessment(
+            conn, model, options, windows, version_now, replay_backwards,
+            as_of_us=as_of_us, seqs=seqs, spec=spec, cap=cap, touched=touched,
+        )  # fmt: skip
+        recalibration = _advice(
+            conn, model, options, windows, current, assessment, spec=spec, cap=cap
+        )
     record = _record(
         model,
         windows,
@@ -140,7 +187,12 @@ def evaluate_model(
         options=options,
         rows_applied=rows_applied,
         raw_from=raw_from,
+        assessment=assessment,
     )
+    if options.evidence:
+        assessment.finish(record, immature_scores)
+        record["recalibration"] = recalibration
+    ev = assessment.evidence
     write = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
     with write, write.begin():
         if not replay_backwards:
@@ -157,6 +209,21 @@ def evaluate_model(
             store_sketches.save_cursor(
                 write, model_id=model.id, cursor=Cursor(as_of_us, *seqs), now_us=now_us
             )
+            if assessment.baselines is not None:
+                store_evidence.add_baselines(
+                    write, model_id=model.id, fixed=assessment.baselines.fixed_now, now_us=now_us
+                )
+        if ev is not None:
+            latest = store_evidence.latest_reset(write, model_id=model.id)
+            if (latest.id if latest else None) != ev.reset_id:
+                raise Conflict(
+                    f"the evidence of model {model.name!r} was reset during this run; "
+                    "nothing was written, evaluate again"
+                )
+            store_evidence.save_streams(
+                write, model_id=model.id, streams=ev.to_store(), existing=ev.existing, now_us=now_us
+            )
+            store_evidence.save_cursor(write, model_id=model.id, cursor=ev.cursor, now_us=now_us)
         evaluation_id = store_evaluations.create(
             write,
             model_id=model.id,
@@ -171,6 +238,116 @@ def evaluate_model(
                 write, evaluation_id=evaluation_id, health=record["health"], record=record
             )
     return record
+
+
+def _assessment(
+    conn: sa.Connection,
+    model: MonitoredModel,
+    options: Options,
+    windows: list[Window],
+    version_now: str | None,
+    replay_backwards: bool,
+    *,
+    as_of_us: int,
+    seqs: tuple[int, int, int],
+    spec: SliceSpec,
+    cap: ValueCap,
+    touched: dict[BucketKey, Bucket],
+) -> Assessment:
+    decl = model.declaration
+    horizon_us = decl.label_horizon_seconds * 1_000_000
+    ev = None
+    if options.evidence and not replay_backwards:
+        ev = evidence_mod.advance(
+            conn,
+            model_id=model.id,
+            n_classes=len(model.classes),
+            spec=spec,
+            cap=cap,
+            horizon_us=horizon_us,
+            grace_us=options.evidence_grace_us,
+            missing_negative=decl.missing_outcome == "negative",
+            as_of_us=as_of_us,
+            seqs=seqs,
+            cusum_arl0=options.cusum_arl0,
+        )
+    baselines = None
+    if options.evidence:
+        first = windows[0]  # the model's first declared window sets the baseline's length
+        baselines = drift.resolve_baselines(
+            conn,
+            model,
+            window_days=first.end_day - first.first_day,
+            complete_day=first.end_day,
+            touched=touched,
+        )
+        if replay_backwards:
+            baselines.fixed_now = []
+    return Assessment(
+        evidence=ev,
+        evidence_missing="backwards_replay" if replay_backwards else "evidence_off",
+        baselines=baselines,
+        current_version=version_now,
+        tolerances=options.tolerances,
+        evidence_alpha=options.evidence_alpha,
+        fdr_alpha=options.fdr_alpha,
+        cusum_arl0=options.cusum_arl0,
+    )
+
+
+def _advice(
+    conn: sa.Connection,
+    model: MonitoredModel,
+    options: Options,
+    windows: list[Window],
+    buckets: dict[BucketKey, Bucket],
+    assessment: Assessment,
+    *,
+    spec: SliceSpec,
+    cap: ValueCap,
+) -> dict[str, Any] | None:
+    """Advice on the latest matured window: the shortest declared window in which the
+    current version's overall slice has enough events for a verdict (``min_events``)."""
+    version = assessment.current_version
+    if not options.evidence or version is None or assessment.baselines is None:
+        return None
+    k = len(model.classes)
+    for w in sorted(windows, key=lambda w: w.end_day - w.first_day):
+        sums: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(k)))
+        for (v, day, name), b in buckets.items():
+            if v == version and w.first_day <= day < w.end_day:
+                sums[name] = sums[name] + b
+        enough = {
+            name
+            for name, b in sums.items()
+            if health(b, min_events=options.min_events, multiclass_model=k > 0) == "ok"
+        }
+        if "overall" in enough:
+            break
+    else:
+        return None
+    if k:
+        return advice_multiclass.advise_multiclass(
+            conn,
+            model_id=model.id,
+            version=version,
+            window=w,
+            horizon_us=model.declaration.label_horizon_seconds * 1_000_000,
+            spec=spec,
+            cap=frozen_view(cap),
+            window_buckets=sums,
+            baselines=assessment.baselines.buckets,
+            enough=enough,
+            tol=options.tolerances,
+        )
+    return advice.advise(
+        buckets=buckets,
+        version=version,
+        window=w,
+        baselines=assessment.baselines.buckets,
+        enough=enough,
+        tol=options.tolerances,
+    )
 
 
 def _windows(names: list[str], *, frontier_us: int) -> list[Window]:
@@ -194,7 +371,13 @@ def _sum(
 
 
 def _slice_entry(
-    name: str, bucket: Bucket, options: Options, version: str | None, classes: list[str]
+    name: str,
+    bucket: Bucket,
+    options: Options,
+    version: str | None,
+    classes: list[str],
+    w: Window,
+    assessment: Assessment,
 ) -> dict[str, Any]:
     metrics, reasons = slice_metrics(bucket, classes or None)
     entry: dict[str, Any] = {
@@ -204,6 +387,8 @@ def _slice_entry(
         "metrics": metrics,
         "reasons": reasons,
     }
+    if options.evidence:
+        assessment.slice_entry(w, entry, bucket)
     return entry
 
 
@@ -219,6 +404,7 @@ def _record(
     options: Options,
     rows_applied: int,
     raw_from: int | None,
+    assessment: Assessment,
 ) -> dict[str, Any]:
     out_windows = []
     states = []
@@ -228,12 +414,12 @@ def _record(
             overall["overall"] = Bucket(empty_sketch(len(model.classes)))
         versions = sorted({v for v, _ in by_version})
         entries = [
-            _slice_entry(name, overall[name], options, None, model.classes)
+            _slice_entry(name, overall[name], options, None, model.classes, w, assessment)
             for name in _ordered(overall)
         ]
         if len(versions) > 1:
             entries += [
-                _slice_entry(name, by_version[(v, name)], options, v, model.classes)
+                _slice_entry(name, by_version[(v, name)], options, v, model.classes, w, assessment)
                 for v in versions
                 for name in _ordered({n for vv, n in by_version if vv == v})
             ]
@@ -254,6 +440,8 @@ def _record(
         "windows": out_windows,
         "immature": immature,
         "evidence": [],
+        "fdr": None,
+        "baseline": None,
         "recalibration": None,
         "alerts": [],
         "slice_cap": {"cap": cap.cap, "capped_keys": cap.capped_keys()},

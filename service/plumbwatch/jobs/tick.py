@@ -20,6 +20,7 @@ from plumbwatch.errors import Conflict, PlumbwatchError
 from plumbwatch.evaluate.cohorts import DAY_US
 from plumbwatch.evaluate.run import AfterRecord, Options, evaluate_model
 from plumbwatch.store import evaluations as store_evaluations
+from plumbwatch.store import evidence as store_evidence
 from plumbwatch.store import models as store_models
 from plumbwatch.store import retention
 from plumbwatch.store import sketches as store_sketches
@@ -99,6 +100,10 @@ class Evaluator:
         if cursor is None:
             return 0
         frontier = cursor.as_of_us - model.declaration.label_horizon_seconds * 1_000_000
+        with self.engine.connect() as conn:
+            evidence = store_evidence.get_cursor(conn, model_id=model.id)
+        # Evidence lags the sketches by its grace: never prune a row it has not been fed.
+        frontier = min(frontier, evidence.frontier_us if evidence else frontier)
         before = min(now_us - self.retention_days * DAY_US, frontier)
         total = 0
         while True:

@@ -172,6 +172,68 @@ evaluations = sa.Table(
     sa.Index(None, "model_id", "as_of_us"),
 )
 
+# -- evidence (derived, but never rebuilt: a stream sees each row once, at maturity) ---
+
+# One row per model: how far the evidence streams have been fed. The evidence
+# frontier is as_of - label_horizon - evidence_grace (see evaluate/evidence.py).
+evidence_cursors = sa.Table(
+    "evidence_cursors",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("as_of_us", sa.BigInteger, nullable=False),  # the last as_of fed
+    sa.Column("frontier_us", sa.BigInteger, nullable=False),  # rows predicted up to here were fed
+    sa.Column("prediction_seq", sa.BigInteger, nullable=False),
+    sa.Column("outcome_seq", sa.BigInteger, nullable=False),
+    sa.Column("revision_seq", sa.BigInteger, nullable=False),
+    sa.Column("updated_at_us", sa.BigInteger, nullable=False),
+)
+
+# One anytime-valid e-process (and its CUSUM charts) per (model, version, slice).
+evidence_streams = sa.Table(
+    "evidence_streams",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("version", sa.String(64), primary_key=True),
+    sa.Column("slice", sa.String(600), primary_key=True),
+    sa.Column("started_at_us", sa.BigInteger, nullable=False),  # as_of of its first run
+    # The evidence cursor when the stream started: it saw only rows fed after it
+    # (predicted after since_frontier_us, or with an id above since_prediction_seq).
+    sa.Column("since_frontier_us", sa.BigInteger, nullable=False),
+    sa.Column("since_prediction_seq", sa.BigInteger, nullable=False),
+    sa.Column("state", sa.LargeBinary, nullable=False),  # stats evidence state, to_bytes()
+    # Binary models: JSON of the CUSUM charts, their simulated threshold once known, and
+    # the case mix it was simulated for (evaluate/cusum.py).
+    sa.Column("cusum", sa.Text, nullable=True),
+    sa.Column("corrections", sa.BigInteger, nullable=False),  # fed rows corrected later
+    sa.Column("late_labels", sa.BigInteger, nullable=False),  # outcomes after the row was fed
+    sa.Column("last_predicted_at_us", sa.BigInteger, nullable=False),
+    sa.Column("updated_at_us", sa.BigInteger, nullable=False),
+)
+
+# Admin resets (after an acknowledged recalibration): every stream restarts at E = 1.
+evidence_resets = sa.Table(
+    "evidence_resets",
+    metadata,
+    sa.Column("id", RowId, primary_key=True),
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), nullable=False),
+    sa.Column("reset_at_us", sa.BigInteger, nullable=False),
+    sa.Column("reason", sa.Text, nullable=False),
+    sa.Column("actor", sa.String(200), nullable=False),
+    sa.Index(None, "model_id", "id"),
+)
+
+# The baseline window of each version once it is fixed (the first matured window
+# after the version's first cohort day, when the declaration names no dates).
+baselines = sa.Table(
+    "baselines",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("version", sa.String(64), primary_key=True),
+    sa.Column("first_day", sa.Integer, nullable=False),
+    sa.Column("end_day", sa.Integer, nullable=False),  # exclusive
+    sa.Column("fixed_at_us", sa.BigInteger, nullable=False),
+)
+
 leases = sa.Table(
     "leases",
     metadata,

@@ -1,0 +1,409 @@
+"""Anytime-valid evidence per (model version, slice), fed each row once, at maturity.
+
+Each stream is the mixture e-process of METHODS.md §7.2 (binary: logistic
+recalibration alternatives; multiclass: temperature alternatives), with a pair of
+risk-adjusted CUSUM charts beside it for binary models (``evaluate/cusum.py``).
+
+What a stream sees, and when (METHODS.md §7.5 and §13):
+
+* A row is fed at the first run whose *evidence frontier*
+  ``as_of - label_horizon - evidence_grace`` has passed its ``predicted_at``,
+  in maturity order ``(predicted_at, id)`` (for a fixed horizon the same as
+  ``predicted_at + horizon``), with the outcome it has in that run's snapshot:
+  an outcome counts if observed within the horizon, as in the sketches. With
+  ``missing_outcome = wait`` a row without one is skipped (and counted), with
+  ``negative`` it is fed as 0.
+* ``evidence_grace`` (default one day) is the label-delay guard: sketches fold in
+  outcomes that arrive after maturity, a stream cannot. If negatives are known
+  only at the horizon and the labelling job posts them a few hours later, a
+  stream fed right at maturity would see the fast positives and skip the slow
+  negatives, and page on a calibrated model. The grace gives the pipeline that
+  time; only inclusion still decided by label-dependent lateness beyond it can
+  bias. Replays see outcomes by ``observed_at`` and are not affected.
+* Rows received after the frontier passed them (backfills) are fed at the next
+  run, before that run's newly matured rows. Their order does not depend on
+  outcomes, so the process stays a test martingale.
+* Outcomes that arrive after their row was fed (``late_labels``) and corrections
+  of fed outcomes (``corrections``) update sketches and metrics only; the stream
+  counts them and never rewrites what it has gathered (§7.5 item 2).
+* A replay that goes forward feeds exactly the rows a live run at the same as_of
+  would; an as_of before the last evaluation does not touch the streams.
+* A new version starts new streams; so does ``POST /evidence/reset`` (all of the
+  model's streams restart at E = 1, the reset is kept with its reason).
+
+``log_evidence`` is the natural log of the current e-value. ``max_log_evidence`` is
+the largest value seen at the end of a run, when it is looked at; with
+``K`` streams of the version, ``log_threshold`` is ``ln(K / evidence_alpha)``
+(Ville's inequality with Bonferroni, §7.4). ``K`` is the number of slices the
+version has streams for at this run; when a new slice value appears, ``K`` grows
+and every threshold of the version rises (they never fall). The Bonferroni
+guarantee is exact for a fixed set of slices; a slice that appears late, after
+others crossed a lower threshold, is the one case it does not cover.
+"""
+
+from __future__ import annotations
+
+from array import array
+from collections import defaultdict
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+import orjson
+import sqlalchemy as sa
+
+from plumbwatch.evaluate import cusum
+from plumbwatch.evaluate.cohorts import classify
+from plumbwatch.evaluate.immature import frozen_view
+from plumbwatch.evaluate.slices import SliceSpec, ValueCap
+from plumbwatch.stats.evidence import MixtureEvidence, TemperatureEvidence, binary_log_lr
+from plumbwatch.stats.evidence import log_threshold as ville_threshold
+from plumbwatch.store import evidence as store
+from plumbwatch.store.evidence import EvidenceCursor, StoredStream, StreamKey
+from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
+from plumbwatch.timefmt import format_instant
+
+_NEG_INF = -(2**62)
+_CHUNK = 50_000
+
+
+@dataclass
+class Stream:
+    state: Any  # MixtureEvidence | TemperatureEvidence
+    track: cusum.Track | None  # binary models only
+    started_at_us: int
+    since_frontier_us: int
+    since_prediction_seq: int
+    corrections: int = 0
+    late_labels: int = 0
+    last_predicted_at_us: int = _NEG_INF
+
+    def saw(self, predicted_at_us: int, prediction_id: int) -> bool:
+        """Whether a row fed before this run was fed to this stream (not to a predecessor)."""
+        return predicted_at_us > self.since_frontier_us or prediction_id > self.since_prediction_seq
+
+
+@dataclass
+class EvidenceRun:
+    """The model's streams after one run, and what the run fed them."""
+
+    streams: dict[StreamKey, Stream]
+    existing: set[StreamKey]
+    cursor: EvidenceCursor
+    feed: dict[str, Any]
+    reset_id: int | None
+    touched: set[StreamKey] = field(default_factory=set)
+
+    def n_slices(self, version: str) -> int:
+        return sum(1 for v, _ in self.streams if v == version)
+
+    def log_threshold(self, version: str, alpha: float) -> float:
+        return ville_threshold(alpha=alpha, n_slices=max(1, self.n_slices(version)))
+
+    def current_version(self, slice_name: str) -> str | None:
+        """The version whose stream of this slice was fed the most recent row."""
+        best = None
+        for (v, s), stream in self.streams.items():
+            if s == slice_name and (
+                best is None
+                or stream.last_predicted_at_us > self.streams[best].last_predicted_at_us
+            ):
+                best = (v, s)
+        return best[0] if best else None
+
+    def entries(self, versions: set[str], *, alpha: float, cusum_arl0: int) -> list[dict[str, Any]]:
+        """The record's ``evidence`` list for the given versions, in slice order."""
+        out = []
+        for (v, s), stream in sorted(self.streams.items(), key=lambda kv: _order(kv[0])):
+            if v not in versions:
+                continue
+            threshold = self.log_threshold(v, alpha)
+            log_e = float(stream.state.log_evidence)
+            out.append(
+                {
+                    "slice": s,
+                    "version": v,
+                    "log_evidence": log_e,
+                    "log_threshold": threshold,
+                    "max_log_evidence": float(stream.state.max_log_evidence),
+                    "n": int(stream.state.n),
+                    "crossed": bool(stream.state.max_log_evidence >= threshold),
+                    "started_at": format_instant(stream.started_at_us),
+                    "corrections": stream.corrections,
+                    "late_labels": stream.late_labels,
+                    "cusum": stream.track.record(cusum_arl0) if stream.track else None,
+                }
+            )
+        return out
+
+    def to_store(self) -> dict[StreamKey, StoredStream]:
+        return {
+            key: StoredStream(
+                s.started_at_us,
+                s.since_frontier_us,
+                s.since_prediction_seq,
+                s.state.to_bytes(),
+                s.track.to_json() if s.track else None,
+                s.corrections,
+                s.late_labels,
+                s.last_predicted_at_us,
+            )
+            for key, s in self.streams.items()
+            if key in self.touched
+        }
+
+
+def _order(key: StreamKey) -> tuple[str, bool, int, str]:
+    v, s = key
+    return (v, s != "overall", s.count(","), s)
+
+
+def _decode(stored: StoredStream, multiclass: bool) -> Stream:
+    kind = TemperatureEvidence if multiclass else MixtureEvidence
+    return Stream(
+        kind.from_bytes(stored.state),
+        None if multiclass else cusum.Track.from_json(stored.cusum),
+        stored.started_at_us,
+        stored.since_frontier_us,
+        stored.since_prediction_seq,
+        stored.corrections,
+        stored.late_labels,
+        stored.last_predicted_at_us,
+    )
+
+
+@dataclass
+class _Rows:
+    """Rows to feed, in order, with their (version, segments) combination."""
+
+    combos: dict[tuple[str, str | None], int] = field(default_factory=dict)
+    cid: array[int] = field(default_factory=lambda: array("q"))
+    at: array[int] = field(default_factory=lambda: array("q"))
+    y: array[int] = field(default_factory=lambda: array("q"))
+    p: list[Any] = field(default_factory=list)  # floats, or class-probability lists
+    skipped: int = 0
+
+
+def advance(
+    conn: sa.Connection,
+    *,
+    model_id: int,
+    n_classes: int,
+    spec: SliceSpec,
+    cap: ValueCap,
+    horizon_us: int,
+    grace_us: int,
+    missing_negative: bool,
+    as_of_us: int,
+    seqs: tuple[int, int, int],
+    cusum_arl0: int,
+) -> EvidenceRun:
+    """Feed the rows that reached the evidence frontier since the last run (see module doc)."""
+    stored = store.load_streams(conn, model_id=model_id)
+    previous = store.get_cursor(conn, model_id=model_id)
+    reset = store.latest_reset(conn, model_id=model_id)
+    multiclass = n_classes > 0
+    streams = {key: _decode(s, multiclass) for key, s in stored.items()}
+    e0 = previous.frontier_us if previous else _NEG_INF
+    e1 = max(e0, as_of_us - horizon_us - grace_us)
+    p0 = previous.prediction_seq if previous else 0
+    rows = _Rows()
+    backfilled = _collect(
+        conn, rows, model_id, multiclass, horizon_us, missing_negative, seqs[0], e0, e1, p0
+    )
+    run = EvidenceRun(
+        streams,
+        set(stored),
+        EvidenceCursor(max(as_of_us, previous.as_of_us if previous else as_of_us), e1, *seqs),
+        {
+            "frontier": format_instant(e1) if e1 > _NEG_INF else None,
+            "rows": len(rows.cid) + rows.skipped,
+            "backfilled": backfilled,
+            "skipped_unlabelled": rows.skipped,
+        },
+        reset.id if reset else None,
+    )
+    names = _names_of(spec, frozen_view(cap))
+    _feed(run, rows, names, as_of_us=as_of_us, previous=previous, multiclass=multiclass)
+    if previous is not None:
+        _count_afterwards(conn, run, names, model_id, previous, seqs)
+    if not multiclass:
+        keys = [k for k, s in run.streams.items() if s.track and s.track.threshold is None]
+        tracks = cusum.assign_thresholds(
+            [run.streams[k].track for k in keys],  # type: ignore[misc]
+            target_arl0=cusum_arl0,
+        )
+        for key, track in zip(keys, tracks, strict=True):
+            if track.threshold is not None:
+                run.streams[key].track = track
+                run.touched.add(key)
+    return run
+
+
+def _names_of(spec: SliceSpec, cap: ValueCap) -> Any:
+    cache: dict[str | None, list[str]] = {}
+
+    def names(segments: str | None) -> list[str]:
+        found = cache.get(segments)
+        if found is None:
+            found = cache[segments] = spec.names(orjson.loads(segments) if segments else {}, cap)
+        return found
+
+    return names
+
+
+def _collect(
+    conn: sa.Connection,
+    rows: _Rows,
+    model_id: int,
+    multiclass: bool,
+    horizon_us: int,
+    missing_negative: bool,
+    p1: int,
+    e0: int,
+    e1: int,
+    p0: int,
+) -> int:
+    """Backfills first (they matured earlier), then the rows the frontier passed."""
+    p, o = predictions.c, outcomes.c
+    prob = p.probabilities if multiclass else p.probability
+    joined = (
+        sa.select(p.predicted_at_us, prob, p.version, p.segments, o.outcome, o.observed_at_us)
+        .select_from(predictions.outerjoin(outcomes, o.prediction_id == p.id))
+        .where(p.model_id == model_id, p.id <= p1)
+    )
+    queries = [joined.where(p.predicted_at_us > e0, p.predicted_at_us <= e1)]
+    if e0 > _NEG_INF:
+        queries.insert(0, joined.where(p.id > p0, p.predicted_at_us <= e0))
+    known: dict[tuple[int | None, bool], Any] = {}
+    backfilled = 0
+    for i, query in enumerate(queries):
+        before = len(rows.cid) + rows.skipped
+        ordered = query.order_by(p.predicted_at_us, p.id).execution_options(yield_per=_CHUNK)
+        for at, pr, version, segments, outcome, observed in conn.execute(ordered):
+            key = (None, False) if outcome is None else (outcome, observed <= at + horizon_us)
+            state = known.get(key)
+            if state is None:
+                state = known[key] = classify(
+                    outcome=outcome,
+                    observed_at_us=observed,
+                    predicted_at_us=at,
+                    horizon_us=horizon_us,
+                    missing_negative=missing_negative,
+                )
+            if not state.included:
+                rows.skipped += 1
+                continue
+            combo = rows.combos.get((version, segments))
+            if combo is None:
+                combo = rows.combos[(version, segments)] = len(rows.combos)
+            rows.cid.append(combo)
+            rows.at.append(at)
+            rows.y.append(state.y)
+            rows.p.append(orjson.loads(pr) if multiclass else pr)
+        if i == 0 and len(queries) == 2:
+            backfilled = len(rows.cid) + rows.skipped - before
+    return backfilled
+
+
+def _feed(
+    run: EvidenceRun,
+    rows: _Rows,
+    names: Any,
+    *,
+    as_of_us: int,
+    previous: EvidenceCursor | None,
+    multiclass: bool,
+) -> None:
+    if not rows.cid:
+        return
+    cid = np.frombuffer(rows.cid, dtype=np.int64)
+    y = np.frombuffer(rows.y, dtype=np.int64)
+    at = np.frombuffer(rows.at, dtype=np.int64)
+    p = np.asarray(rows.p, dtype=np.float64)
+    # Stream -> the combinations whose rows it gets.
+    members: dict[StreamKey, list[int]] = defaultdict(list)
+    for (version, segments), c in rows.combos.items():
+        for name in names(segments):
+            members[(version, name)].append(c)
+    n_combos = len(rows.combos)
+    last = np.full(n_combos, _NEG_INF, dtype=np.int64)
+    np.maximum.at(last, cid, at)
+    since = (previous.frontier_us, previous.prediction_seq) if previous else (_NEG_INF, 0)
+    if not multiclass:
+        # The log likelihood ratios of a row are the same for every stream it feeds:
+        # compute them once, sum them per combination, then per stream.
+        template = MixtureEvidence.start()
+        lr = binary_log_lr(y, p, template.params[:, 0], template.params[:, 1], eps=template.eps)
+        order = np.argsort(cid, kind="stable")
+        starts = np.searchsorted(cid[order], np.arange(n_combos))
+        per_combo = np.add.reduceat(lr[order], starts, axis=0)
+        counts = np.bincount(cid, minlength=n_combos)
+    for key, combos in members.items():
+        stream = run.streams.get(key)
+        if stream is None:
+            stream = run.streams[key] = Stream(
+                TemperatureEvidence.start() if multiclass else MixtureEvidence.start(),
+                None if multiclass else cusum.Track(),
+                as_of_us,
+                *since,
+            )
+        idx = np.flatnonzero(np.isin(cid, combos)) if len(members) > 1 else np.arange(cid.size)
+        state = stream.state
+        if multiclass:
+            state = state.update(y[idx], p[idx])
+        else:
+            total = per_combo[combos].sum(axis=0)
+            log_lr = np.array(state.log_lr + total)
+            log_lr.setflags(write=False)
+            state = replace(state, log_lr=log_lr, n=state.n + int(counts[combos].sum()))
+            stream.track = cusum.update(stream.track or cusum.Track(), y[idx].astype(float), p[idx])
+        # The maximum is taken where it is looked at, at the end of a run.
+        stream.state = replace(
+            state, max_log_evidence=max(stream.state.max_log_evidence, state.log_evidence)
+        )
+        stream.last_predicted_at_us = max(stream.last_predicted_at_us, int(last[combos].max()))
+        run.touched.add(key)
+
+
+def _count_afterwards(
+    conn: sa.Connection,
+    run: EvidenceRun,
+    names: Any,
+    model_id: int,
+    previous: EvidenceCursor,
+    seqs: tuple[int, int, int],
+) -> None:
+    """Count outcomes that arrived, and corrections made, after their row was fed."""
+    p, o, r = predictions.c, outcomes.c, outcome_revisions.c
+    fed = sa.and_(p.id <= previous.prediction_seq, p.predicted_at_us <= previous.frontier_us)
+    late = (
+        sa.select(p.id, p.predicted_at_us, p.version, p.segments)
+        .select_from(outcomes.join(predictions, p.id == o.prediction_id))
+        .where(o.model_id == model_id, o.id > previous.outcome_seq, o.id <= seqs[1], fed)
+    )
+    corrected = (
+        sa.select(p.id, p.predicted_at_us, p.version, p.segments)
+        .select_from(
+            outcome_revisions.join(outcomes, o.id == r.outcome_id).join(
+                predictions, p.id == o.prediction_id
+            )
+        )
+        .where(
+            o.model_id == model_id,
+            r.id > previous.revision_seq,
+            r.id <= seqs[2],
+            o.id <= previous.outcome_seq,  # the fed row had this outcome already
+            fed,
+        )
+    )
+    for query, attribute in ((late, "late_labels"), (corrected, "corrections")):
+        for pid, at, version, segments in conn.execute(query):
+            for name in names(segments):
+                stream = run.streams.get((version, name))
+                if stream is not None and stream.saw(at, pid):
+                    setattr(stream, attribute, getattr(stream, attribute) + 1)
+                    run.touched.add((version, name))
+
+
+__all__ = ["EvidenceRun", "Stream", "advance"]
