@@ -11,7 +11,15 @@ from sqlalchemy.engine import Engine
 
 from plumbwatch import __version__
 from plumbwatch.api import errors
-from plumbwatch.api.routes import evaluations, health, models, outcomes, predictions
+from plumbwatch.api.routes import (
+    evaluations,
+    evidence,
+    health,
+    models,
+    outcomes,
+    predictions,
+    recalibration,
+)
 from plumbwatch.config import Settings
 from plumbwatch.evaluate.run import Options
 from plumbwatch.jobs.schedule import start_scheduler
@@ -68,6 +76,6 @@ def create_app(
         retention_days=settings.retention_days,
     )
     errors.install(app)
-    for module in (health, models, predictions, outcomes, evaluations):
+    for module in (health, models, predictions, outcomes, evaluations, evidence, recalibration):
         app.include_router(module.router)
     return app

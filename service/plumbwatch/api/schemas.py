@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from pydantic import BaseModel
+from pydantic import BaseModel, ConfigDict
 
 from plumbwatch.declarations import ModelDeclaration
 
@@ -155,3 +155,35 @@ def errors(*statuses: int) -> dict[int | str, dict[str, Any]]:
 class EvaluationCreate(BaseModel):
     as_of: str | None = None
     notify: bool = True
+
+
+class EvidenceResetCreate(BaseModel):
+    reason: str
+
+
+class EvidenceResetRead(BaseModel):
+    model: str
+    reset_at: str
+    reason: str
+    by: str
+    streams_reset: int
+
+
+class RecalibrationRead(BaseModel):
+    """The latest run's recalibration advice (``evaluate/advice.py``); more fields may follow."""
+
+    model_config = ConfigDict(extra="allow")
+
+    slice: str
+    version: str
+    method: str | None
+    window: dict[str, str]
+    gain_log_loss: float | None
+    gain_interval: list[float] | None
+    in_sample_gain: float | None
+    knots: list[list[float]] | None
+    verdict: str
+    explanation: str
+    auroc: float | None
+    baseline_auroc: float | None
+    slices: list[dict[str, Any]]

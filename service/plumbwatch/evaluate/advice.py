@@ -17,7 +17,9 @@ declared window), overall and per slice with enough events (``min_events``):
    ``mean -/+ 1.96 sd/sqrt(n)``; ``in_sample_gain`` is the optimistic value of the
    map fitted and scored on the whole window, shown for contrast.
 3. The best map is the one with the largest cross-fitted gain; its knot table
-   (interpolate linearly in logit) is what a pipeline applies.
+   (interpolate linearly in logit) is what a pipeline applies. Per slice, maps are
+   fitted only where the miscalibration is material: elsewhere the verdict cannot be
+   ``recalibrate``, and the gain fields are null (this keeps a run cheap).
 4. Verdict, in this order:
 
    * ``retrain``: AUROC fell below the version's baseline window by more than
@@ -169,10 +171,9 @@ def discrimination(window: Any, baseline: Any | None) -> dict[str, Any]:
     return out
 
 
-def verdict(best: dict[str, Any], disc: dict[str, Any], material: bool) -> tuple[str, str]:
-    """The verdict and its explanation in plain words."""
-    lo, hi = best["gain_interval"]
-    gain = f"{best['gain_log_loss']:.4f} nats per row (95 % interval {lo:.4f} to {hi:.4f})"
+def verdict(best: dict[str, Any] | None, disc: dict[str, Any], material: bool) -> tuple[str, str]:
+    """The verdict and its explanation in plain words (``best``: None when no map was
+    fitted because nothing material was there to fix)."""
     if disc["fell"]:
         return "retrain", (
             f"Discrimination fell: AUROC {disc['auroc']:.3f} against "
@@ -185,52 +186,58 @@ def verdict(best: dict[str, Any], disc: dict[str, Any], material: bool) -> tuple
         if disc["baseline_auroc"] is not None and disc["auroc"] is not None
         else "AUROC not compared: the version's baseline window has not matured yet"
     )
-    if lo > 0 and material:
+    if best is None or not material:
+        return "no action", (
+            f"No action: the miscalibration is below the materiality tolerances; {held}."
+        )
+    lo, hi = best["gain_interval"]
+    gain = f"{best['gain_log_loss']:.4f} nats per row (95 % interval {lo:.4f} to {hi:.4f})"
+    if lo > 0:
         return "recalibrate", (
             f"A {best['method']} map cuts the log loss by {gain}, cross-fitted by cohort day, "
             f"and the miscalibration is material; {held}. Apply the map's knots in the "
             "pipeline, then reset the evidence with the reason."
         )
-    why = (
-        "the miscalibration is below the materiality tolerances"
-        if lo > 0
-        else f"the best map ({best['method']}) would change the log loss by {gain}, "
-        "not clearly better than the model"
+    return "no action", (
+        f"No action: the best map ({best['method']}) would change the log loss by {gain}, "
+        f"not clearly better than the model; {held}."
     )
-    return "no action", f"No action: {why}; {held}."
 
 
 def advise_slice(
-    days: list[Any], window_sketch: Any, baseline: Any | None, tol: Tolerances
+    days: list[Any], window_sketch: Any, baseline: Any | None, tol: Tolerances, *, fit: bool
 ) -> dict[str, Any]:
-    """Advice for one slice from its per-day sketches (in day order) over the window."""
-    grouped = grouped_days(days)
-    found = []
-    reasons = {}
-    for method in METHODS:
-        try:
-            found.append(candidate(grouped, method))
-        except Undefined as exc:
-            reasons[method] = exc.reason
-    if not found:
-        raise Undefined(
-            next(iter(reasons.values()), "no_fit"), "no recalibration map could be fitted"
-        )
-    best = max(found, key=lambda c: c["gain_log_loss"])
+    """Advice for one slice from its per-day sketches (in day order) over the window.
+
+    With ``fit`` False, maps are fitted only if the miscalibration is material (else
+    the verdict cannot be "recalibrate" and follows from AUROC alone, and the gain
+    fields are null): a slice's advice then costs next to nothing when all is well.
+    """
     c10 = window_sketch.coarse_sums(10)
     ece = l2_calibration_error_from_bins(c10["count"], c10["sum_y"], c10["sum_p"], debiased=True)
     sum_p = window_sketch.total("sum_p")
     oe = window_sketch.events / sum_p if sum_p > 0 else None
+    material = is_material(ece, oe, tol)
     disc = discrimination(window_sketch, baseline)
-    word, explanation = verdict(best, disc, is_material(ece, oe, tol))
+    found = []
+    reasons = {}
+    grouped = grouped_days(days)
+    if fit or material:
+        for method in METHODS:
+            try:
+                found.append(candidate(grouped, method))
+            except Undefined as exc:
+                reasons[method] = exc.reason
+    best = max(found, key=lambda c: c["gain_log_loss"]) if found else None
+    word, explanation = verdict(best, disc, material)
     return {
-        "method": best["method"],
+        "method": best["method"] if best else None,
         "n": round(grouped.n),
-        "gain_log_loss": best["gain_log_loss"],
-        "gain_interval": best["gain_interval"],
-        "in_sample_gain": best["in_sample_gain"],
-        "params": best["params"],
-        "knots": [list(k) for k in best["_map"].knots()],
+        "gain_log_loss": best["gain_log_loss"] if best else None,
+        "gain_interval": best["gain_interval"] if best else None,
+        "in_sample_gain": best["in_sample_gain"] if best else None,
+        "params": best["params"] if best else None,
+        "knots": [list(k) for k in best["_map"].knots()] if best else None,
         "verdict": word,
         "explanation": explanation,
         "auroc": disc["auroc"],
@@ -264,7 +271,9 @@ def advise(
             total = total + s
         base = baselines.get((version, name))
         try:
-            entry = advise_slice(days, total, base.sketch if base else None, tol)
+            entry = advise_slice(
+                days, total, base.sketch if base else None, tol, fit=name == "overall"
+            )
         except Undefined:
             continue
         entries[name] = {"slice": name, "version": version, **entry}

@@ -14,8 +14,12 @@ target. Choices, for cost (simulation is the dearest thing in a run):
 * The case mix is the histogram of ``logit p`` over the stream's first 1,000
   matured rows (0.5-wide bins on [-5, 5] plus two tails), frozen then, so ``h``
   depends on the stream's own data only and a replay computes the same ``h``.
-* The simulation resamples bin centres with the histogram's shares rounded to
-  1/40; slices with like case mixes share one simulation (cached per process).
+* It is summarised by five quantiles of ``logit p`` (5, 25, 50, 75 and 95 %),
+  each rounded to 0.5, and the simulation resamples 20 probabilities spread
+  evenly along those quantiles. Slices with like case mixes thus share one
+  simulation (cached per process, and given to every stream with that summary in
+  the same run); the summary is coarse, but the threshold moves little with the
+  case mix, and the bound below holds whatever it is.
 * The two charts together should signal falsely once per ``target`` rows, so each
   is simulated to ``2 x target`` (their false-signal rates add) and the larger of
   the two ``h`` is used for both: the pair's ARL0 is then at least the target.
@@ -40,8 +44,6 @@ from plumbwatch.stats import RiskAdjustedCusum, cusum_threshold_by_simulation
 
 CASE_MIX_ROWS = 1_000
 _EDGES = np.arange(-5.0, 5.0 + 1e-9, 0.5)  # interior logit edges; bins: tail, 20, tail
-_CENTRES = np.concatenate([[-5.25], (_EDGES[1:] + _EDGES[:-1]) / 2, [5.25]])
-_SHARE_STEPS = 40
 _SIMS = 100
 SIMULATIONS_PER_RUN = 2
 
@@ -101,24 +103,32 @@ def update(track: Track, y: NDArray[np.float64], p: NDArray[np.float64]) -> Trac
     mix, frozen = track.case_mix, track.frozen
     if not frozen:
         z = np.log(np.clip(p, 1e-6, 1 - 1e-6)) - np.log1p(-np.clip(p, 1e-6, 1 - 1e-6))
-        counts = np.bincount(np.searchsorted(_EDGES, z, side="right"), minlength=_CENTRES.size)
+        counts = np.bincount(np.searchsorted(_EDGES, z, side="right"), minlength=_EDGES.size + 1)
         mix = [a + int(b) for a, b in zip(mix, counts, strict=True)]
         frozen = sum(mix) >= CASE_MIX_ROWS
     return replace(track, chart=chart, case_mix=mix, frozen=frozen)
 
 
-def _key(case_mix: list[int]) -> tuple[int, ...]:
-    c = np.asarray(case_mix, dtype=np.float64)
-    return tuple(int(v) for v in np.rint(c / c.sum() * _SHARE_STEPS))
+_LEVELS = np.array([0.05, 0.25, 0.5, 0.75, 0.95])
+_POOL_LEVELS = (np.arange(20) + 0.5) / 20
+
+
+def _key(case_mix: list[int]) -> tuple[float, ...]:
+    """Five quantiles of logit p from the histogram (linear within bins), rounded to 0.5."""
+    counts = np.asarray(case_mix, dtype=np.float64)
+    edges = np.concatenate([[-5.5], _EDGES, [5.5]])  # tails closed half a unit out
+    cdf = np.concatenate([[0.0], np.cumsum(counts) / counts.sum()])
+    q = np.interp(_LEVELS, cdf, edges)
+    return tuple(float(v) for v in np.round(q * 2) / 2)
 
 
 # Simulated thresholds by (rounded case mix, target); shared by every model in the process.
-_CACHE: dict[tuple[tuple[int, ...], int], float] = {}
+_CACHE: dict[tuple[tuple[float, ...], int], float] = {}
 _CACHE_SIZE = 512
 
 
-def _simulate(key: tuple[int, ...], target_arl0: int) -> float:
-    pool = np.repeat(1.0 / (1.0 + np.exp(-_CENTRES)), key)
+def _simulate(key: tuple[float, ...], target_arl0: int) -> float:
+    pool = 1.0 / (1.0 + np.exp(-np.interp(_POOL_LEVELS, _LEVELS, key)))
     per_chart = 2 * target_arl0
     return max(
         cusum_threshold_by_simulation(
@@ -129,7 +139,8 @@ def _simulate(key: tuple[int, ...], target_arl0: int) -> float:
 
 
 def assign_thresholds(tracks: list[Track], *, target_arl0: int) -> list[Track]:
-    """Give frozen tracks without a threshold one; at most two new simulations per call."""
+    """Give frozen tracks without a threshold one; at most two new simulations per call
+    (cached results are free, so every track with a computed summary gets it)."""
     budget = SIMULATIONS_PER_RUN
     out = []
     for track in tracks:
