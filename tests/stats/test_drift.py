@@ -131,6 +131,23 @@ def test_ks_from_counts_is_exact_when_values_sit_on_left_edges() -> None:
     assert res.p_value == pytest.approx(float(ref.pvalue), rel=1e-9)
 
 
+def test_ks_p_value_of_large_samples_is_close_to_scipy() -> None:
+    # Past an effective size of 10,000 the limiting distribution stands in for scipy's
+    # kstwo (which takes up to seconds there); scipy's ks_2samp(method="asymp") is the
+    # reference, on values sitting on grid edges so that both statistics are exact.
+    rng = np.random.default_rng(8)
+    for shift in (2.0, 2.02, 2.05):
+        a = GRID_EDGES[bin_index(rng.beta(2, 5, 60_000))]
+        b = GRID_EDGES[bin_index(rng.beta(shift, 5, 40_000))]
+        res = ks_from_counts(
+            np.bincount(bin_index(a), minlength=N_BINS),
+            np.bincount(bin_index(b), minlength=N_BINS),
+        )
+        ref = stats.ks_2samp(a, b, method="asymp")
+        assert res.statistic == pytest.approx(float(ref.statistic), rel=1e-12)
+        assert res.p_value == pytest.approx(float(ref.pvalue), abs=2e-3, rel=0.05)
+
+
 @pytest.mark.parametrize("bins", [10, 40, N_BINS])
 def test_ks_from_counts_bounds_the_exact_statistic(bins: int) -> None:
     rng = np.random.default_rng(bins)

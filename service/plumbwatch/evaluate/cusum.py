@@ -59,7 +59,9 @@ class Track:
 
     @property
     def signalled(self) -> bool:
-        return self.threshold is not None and any(self.chart.signalled(self.threshold))
+        """A chart is at or past its threshold now (a chart falls back towards 0 when
+        the slice is calibrated again, so this clears by itself)."""
+        return self.threshold is not None and max(self.chart.statistic) >= self.threshold
 
     def to_json(self) -> str:
         return orjson.dumps(
@@ -90,6 +92,8 @@ class Track:
             "down": down,
             "threshold": self.threshold,
             "signalled": self.signalled,
+            "ever_signalled": self.threshold is not None
+            and any(self.chart.signalled(self.threshold)),
             "arl0_target": target_arl0,
             "n": self.chart.n,
         }

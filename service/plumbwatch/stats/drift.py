@@ -25,6 +25,7 @@ FloatArray = NDArray[np.float64]
 IntArray = NDArray[np.intp]
 
 DEFAULT_FLOOR = 1e-4
+_EXACT_KS_LIMIT = 10_000
 
 
 @dataclass(frozen=True)
@@ -236,7 +237,11 @@ def ks_from_counts(reference_counts: ArrayLike, current_counts: ArrayLike) -> Ks
 
     The p-value is the asymptotic two-sided one that scipy's ``ks_2samp``
     uses for large samples: ``kstwo.sf(D, round(n m / (n + m)))`` evaluated at
-    the lower bound (so it is, if anything, too large).
+    the lower bound (so it is, if anything, too large). Above an effective size
+    of 10,000, where ``kstwo.sf`` costs tens to hundreds of milliseconds,
+    Kolmogorov's limiting distribution ``kstwobign.sf(D sqrt(en))`` stands in: it
+    differs from ``kstwo`` by less than 0.002 there (checked against scipy in
+    the tests).
     """
     r, c = _check_pair(reference_counts, current_counts)
     n_ref, n_cur = float(r.sum()), float(c.sum())
@@ -245,7 +250,10 @@ def ks_from_counts(reference_counts: ArrayLike, current_counts: ArrayLike) -> Ks
     d = float(np.max(np.abs(f - g)))
     upper = float(max(np.max(f[1:] - g[:-1]), np.max(g[1:] - f[:-1]), d))
     en = n_ref * n_cur / (n_ref + n_cur)
-    p = float(np.clip(stats.kstwo.sf(d, max(1, round(en))), 0.0, 1.0))
+    if en > _EXACT_KS_LIMIT:
+        p = float(np.clip(stats.kstwobign.sf(d * math.sqrt(en)), 0.0, 1.0))
+    else:
+        p = float(np.clip(stats.kstwo.sf(d, max(1, round(en))), 0.0, 1.0))
     return KsResult(d, p, min(upper, 1.0), n_ref, n_cur, "grid_lower_bound")
 
 
