@@ -9,6 +9,7 @@ does not depend on the engine; the engine matrix lives in the other API tests.
 
 from __future__ import annotations
 
+import random
 import threading
 import time
 import zlib
@@ -27,7 +28,7 @@ from plumbwatch.api import create_app
 from plumbwatch.config import Settings
 from plumbwatch.store.engine import create_engine
 from plumbwatch.store.migrate import upgrade
-from tests.factories import binary_model, make_token, prediction
+from tests.factories import binary_model, make_token, outcome, prediction
 from tests.live import free_port
 
 MODEL = "fuzzed"
@@ -75,11 +76,31 @@ def live_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Live]:
             headers=headers,
             timeout=10,
         ).raise_for_status()
+        _evaluated(url, headers)
         yield Live(url, headers)
     finally:
         server.should_exit = True
         thread.join(timeout=20)
         engine.dispose()
+
+
+def _evaluated(url: str, headers: dict[str, str]) -> None:
+    """Matured, labelled rows and one evaluation: status, evaluations, evidence and the
+    recalibration advice then answer with real bodies, checked against their schemas."""
+    rng = random.Random(5)
+    preds, outs = [], []
+    for i in range(1200):
+        p = rng.uniform(0.05, 0.9)
+        at = f"2026-05-{10 + i % 14:02d}T{i % 24:02d}:00:00Z"
+        preds.append(prediction(f"e{i}", predicted_at=at, probability=p))
+        outs.append(outcome(f"e{i}", outcome=int(rng.random() < p), observed_at=at))
+    for path, key, rows in (("predictions", "predictions", preds), ("outcomes", "outcomes", outs)):
+        httpx.post(
+            f"{url}/v1/models/{MODEL}/{path}", json={key: rows}, headers=headers, timeout=30
+        ).raise_for_status()
+    httpx.post(
+        f"{url}/v1/models/{MODEL}/evaluations", json={}, headers=headers, timeout=120
+    ).raise_for_status()
 
 
 def _schema() -> schemathesis.BaseSchema:
