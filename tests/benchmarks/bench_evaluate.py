@@ -27,6 +27,15 @@ fresh schema on PostgreSQL), migrated through ``plumbwatch migrate``:
    ``GET /status`` and ``GET /metrics`` for two ranges whose bounds fall inside
    days is reported.
 5. Table sizes: ``dbstat`` on SQLite, ``pg_total_relation_size`` on PostgreSQL.
+6. Evidence on/off (SQLite): before step 2 the database file is copied three times;
+   one child process runs the first evaluation on the first copy with ``Options(
+   evidence=False)`` (no evidence streams, drift, false-discovery control or advice)
+   to warm imports and caches, untimed, then times it on the second copy (evidence
+   off) and on the third (evidence on), wall and CPU; the withheld outcomes are
+   written to all three and the incremental evaluations compared the same way. The
+   CPU ratio of the two, measured in one process one after the other, is what the
+   evidence work costs a run (CPU, because other work on the machine inflates wall
+   times unevenly).
 
 The default N is 1,000,000: loading through the ingest functions runs at about
 10,000 predictions (with their outcomes) per second on the 2-core reference
@@ -323,6 +332,40 @@ def child(args: argparse.Namespace) -> None:
     print(json.dumps({**result, **extra}))
 
 
+def pair(args: argparse.Namespace) -> None:
+    """Warm up on ``url_warm`` (evidence off), then evaluate ``url`` with evidence off and
+    ``url_on`` with it on, in this process."""
+    from plumbwatch.evaluate.run import Options, evaluate_model
+
+    out = {}
+    runs = (("warm", args.url_warm, False), ("off", args.url, False), ("on", args.url_on, True))
+    for label, url, evidence in runs:
+        engine = create_engine(url)
+        with engine.connect() as conn:
+            model = store_models.get_or_raise(conn=conn, name=MODEL)
+        wall, cpu = time.perf_counter(), time.process_time()
+        evaluate_model(
+            engine,
+            model,
+            as_of_us=args.as_of_us,
+            now_us=args.now_us,
+            options=Options(slice_cap=SLICE_CAP, evidence=evidence),
+        )
+        out[label] = {"seconds": time.perf_counter() - wall, "cpu": time.process_time() - cpu}
+        engine.dispose()
+    print(json.dumps(out))
+
+
+def run_pair(url_warm: str, url_off: str, url_on: str, *, as_of_us: int, now_us: int) -> dict:
+    cmd = [sys.executable, __file__, "--child", "pair", "--url", url_off, "--url-on", url_on]
+    cmd += ["--url-warm", url_warm]
+    cmd += ["--as-of-us", str(as_of_us), "--now-us", str(now_us)]
+    done = subprocess.run(cmd, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        raise RuntimeError(f"pair failed:\n{done.stderr}")
+    return dict(json.loads(done.stdout.strip().splitlines()[-1]))
+
+
 def run_child(url: str, step: str, *, as_of_us: int, now_us: int, profile: Path | None) -> dict:
     cmd = [sys.executable, __file__, "--child", step, "--url", url]
     cmd += ["--as-of-us", str(as_of_us), "--now-us", str(now_us)]
@@ -400,6 +443,15 @@ def run_engine(kind: str, args: argparse.Namespace, work: Path) -> Result:
         print(f"[{kind}] loaded in {f['load_s']:.1f} s", flush=True)
 
         as_of = now_us  # one second after the last cohort matured
+        copies = None
+        if kind == "sqlite":
+            db = Path(sa.engine.make_url(url).database or "")
+            copies = []
+            for name in ("warm-up.db", "evidence-off.db", "evidence-on.db"):
+                shutil.copy(db, work / name)
+                copies.append(f"sqlite:///{work / name}")
+            f["pair_first"] = run_pair(*copies, as_of_us=as_of, now_us=as_of)
+            print(f"[{kind}] first evaluation evidence off/on: {f['pair_first']}", flush=True)
         first = run_child(
             url, "evaluate", as_of_us=as_of, now_us=as_of,
             profile=profile / f"{kind}-first.prof" if profile else None,
@@ -415,6 +467,13 @@ def run_engine(kind: str, args: argparse.Namespace, work: Path) -> Result:
 
         f["post_s"] = post_withheld(url, model_id, loaded["withheld"], as_of + HOUR_US)
         f["posted"] = len(loaded["withheld"])
+        if copies is not None:
+            for copy in copies:
+                post_withheld(copy, model_id, loaded["withheld"], as_of + HOUR_US)
+            f["pair_incremental"] = run_pair(
+                *copies, as_of_us=as_of + HOUR_US, now_us=as_of + HOUR_US
+            )
+            print(f"[{kind}] incremental evidence off/on: {f['pair_incremental']}", flush=True)
         second = run_child(
             url, "evaluate", as_of_us=as_of + HOUR_US, now_us=as_of + HOUR_US,
             profile=profile / f"{kind}-incremental.prof" if profile else None,
@@ -470,6 +529,16 @@ def report(results: list[Result], argv: list[str]) -> None:
         for name, value, target in lines:
             print(f"{name:58} {value:>14} {target:>10}")
         print(f"slices in the P28D window: {first['slices']}; health {inc['health']}")
+        for step in ("pair_first", "pair_incremental"):
+            if step in f:
+                off, on = f[step]["off"], f[step]["on"]
+                print(
+                    f"{step[5:]} evaluation, evidence off -> on (one process): "
+                    f"wall {off['seconds']:.2f} -> {on['seconds']:.2f} s "
+                    f"(+{on['seconds'] / off['seconds'] - 1:.0%}), "
+                    f"CPU {off['cpu']:.2f} -> {on['cpu']:.2f} s "
+                    f"(+{on['cpu'] / off['cpu'] - 1:.0%}; target < +30%)"
+                )
         raw = sum(r.sizes.get(t, 0) for t in RAW_TABLES)
         derived = sum(r.sizes.get(t, 0) for t in DERIVED_TABLES)
         print(f"{'table (' + r.engine + ', indexes included)':40} {'MiB':>12}")
@@ -489,12 +558,17 @@ def main() -> None:
     parser.add_argument("--profile", help="write a cProfile of each evaluation step here")
     parser.add_argument("--keep", action="store_true", help="keep the work directory")
     # Internal: one step in a child process.
-    parser.add_argument("--child", choices=["evaluate", "rebuild"], help=argparse.SUPPRESS)
+    parser.add_argument("--child", choices=["evaluate", "rebuild", "pair"], help=argparse.SUPPRESS)
     parser.add_argument("--url", help=argparse.SUPPRESS)
+    parser.add_argument("--url-on", help=argparse.SUPPRESS)
+    parser.add_argument("--url-warm", help=argparse.SUPPRESS)
     parser.add_argument("--as-of-us", type=int, help=argparse.SUPPRESS)
     parser.add_argument("--now-us", type=int, help=argparse.SUPPRESS)
     parser.add_argument("--profile-to", help=argparse.SUPPRESS)
     args = parser.parse_args()
+    if args.child == "pair":
+        pair(args)
+        return
     if args.child:
         child(args)
         return

@@ -260,11 +260,16 @@ def collect(
     seqs: tuple[int, int, int],
     deltas: Deltas,
     flush: tuple[int, Callable[[], None]] | None = None,
+    watch: tuple[int, int, Callable[..., None]] | None = None,
 ) -> None:
     """Fill ``deltas`` with everything that changed between ``previous`` and now.
 
     ``flush = (rows, callback)`` calls ``callback`` whenever that many rows are
     pending, so that a rebuild over millions of rows applies them in pieces.
+    ``watch = (lower, upper, callback)`` hands each newly matured row with
+    ``lower < predicted_at <= upper`` to ``callback(predicted_at, probability,
+    version, segments, state)`` in maturity order (the evidence streams read them
+    from this pass instead of a second one).
     """
     p, o = predictions.c, outcomes.c
     f1 = as_of_us - horizon_us
@@ -301,6 +306,7 @@ def collect(
         .where(p.model_id == model_id, p.id <= p1)
     )
     known: dict[tuple[int | None, bool], RowState] = {}
+    lower, upper, observe = watch if watch is not None else (0, -1, None)
     # 1. Matured since the last run, and 2. received since then although already matured.
     for query in (
         joined.where(p.predicted_at_us > f0, p.predicted_at_us <= f1).order_by(
@@ -325,8 +331,11 @@ def collect(
                     missing_negative=missing_negative,
                 )
             deltas.add_new(version, at, segments, prob, after)
+            if observe is not None and lower < at <= upper:
+                observe(at, prob, version, segments, after)
             if flush is not None and deltas.rows >= flush[0]:
                 flush[1]()
+        observe = None  # the second query holds backfills, read by the evidence itself
     if previous is None:
         return
     applied = sa.and_(p.id <= p0, p.predicted_at_us <= f0)

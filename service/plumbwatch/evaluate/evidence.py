@@ -43,7 +43,6 @@ others crossed a lower threshold, is the one case it does not cover.
 
 from __future__ import annotations
 
-from array import array
 from collections import defaultdict
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -53,18 +52,15 @@ import orjson
 import sqlalchemy as sa
 
 from plumbwatch.evaluate import cusum
-from plumbwatch.evaluate.cohorts import classify
+from plumbwatch.evaluate import evidence_rows as rows_mod
+from plumbwatch.evaluate.evidence_rows import NEG_INF
 from plumbwatch.evaluate.immature import frozen_view
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
 from plumbwatch.stats.evidence import MixtureEvidence, TemperatureEvidence, binary_log_lr
 from plumbwatch.stats.evidence import log_threshold as ville_threshold
 from plumbwatch.store import evidence as store
 from plumbwatch.store.evidence import EvidenceCursor, StoredStream, StreamKey
-from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
 from plumbwatch.timefmt import format_instant
-
-_NEG_INF = -(2**62)
-_CHUNK = 50_000
 
 
 @dataclass
@@ -76,7 +72,7 @@ class Stream:
     since_prediction_seq: int
     corrections: int = 0
     late_labels: int = 0
-    last_predicted_at_us: int = _NEG_INF
+    last_predicted_at_us: int = NEG_INF
 
     def saw(self, predicted_at_us: int, prediction_id: int) -> bool:
         """Whether a row fed before this run was fed to this stream (not to a predecessor)."""
@@ -93,23 +89,17 @@ class EvidenceRun:
     feed: dict[str, Any]
     reset_id: int | None
     touched: set[StreamKey] = field(default_factory=set)
+    _k: dict[str, int] | None = None  # streams per version, once feeding is done
 
     def n_slices(self, version: str) -> int:
-        return sum(1 for v, _ in self.streams if v == version)
+        if self._k is None:
+            self._k = defaultdict(int)
+            for v, _ in self.streams:
+                self._k[v] += 1
+        return self._k[version]
 
     def log_threshold(self, version: str, alpha: float) -> float:
         return ville_threshold(alpha=alpha, n_slices=max(1, self.n_slices(version)))
-
-    def current_version(self, slice_name: str) -> str | None:
-        """The version whose stream of this slice was fed the most recent row."""
-        best = None
-        for (v, s), stream in self.streams.items():
-            if s == slice_name and (
-                best is None
-                or stream.last_predicted_at_us > self.streams[best].last_predicted_at_us
-            ):
-                best = (v, s)
-        return best[0] if best else None
 
     def entries(self, versions: set[str], *, alpha: float, cusum_arl0: int) -> list[dict[str, Any]]:
         """The record's ``evidence`` list for the given versions, in slice order."""
@@ -173,71 +163,117 @@ def _decode(stored: StoredStream, multiclass: bool) -> Stream:
 
 
 @dataclass
-class _Rows:
-    """Rows to feed, in order, with their (version, segments) combination."""
+class Pending:
+    """The evidence state read at the start of a run, before the deltas' pass."""
 
-    combos: dict[tuple[str, str | None], int] = field(default_factory=dict)
-    cid: array[int] = field(default_factory=lambda: array("q"))
-    at: array[int] = field(default_factory=lambda: array("q"))
-    y: array[int] = field(default_factory=lambda: array("q"))
-    p: list[Any] = field(default_factory=list)  # floats, or class-probability lists
-    skipped: int = 0
+    stored: dict[StreamKey, StoredStream]
+    previous: EvidenceCursor | None
+    reset_id: int | None
+    frontiers: rows_mod.Frontiers
+    observed: rows_mod.Rows
+
+    @property
+    def watch(self) -> tuple[int, int, Any]:
+        """What ``deltas.collect`` hands over (``watch=``)."""
+        return self.frontiers.watcher(self.observed)
+
+
+def prepare(
+    conn: sa.Connection,
+    *,
+    model_id: int,
+    n_classes: int,
+    as_of_us: int,
+    horizon_us: int,
+    grace_us: int,
+    sketch_frontier_us: int | None,
+) -> Pending:
+    """Read the streams and the cursor; ``sketch_frontier_us``: the deltas' lower bound
+    (the previous sketch cursor's frontier, None on a first run)."""
+    previous = store.get_cursor(conn, model_id=model_id)
+    reset = store.latest_reset(conn, model_id=model_id)
+    e0 = previous.frontier_us if previous else NEG_INF
+    frontiers = rows_mod.Frontiers(
+        e0=e0,
+        e1=max(e0, as_of_us - horizon_us - grace_us),
+        f0=NEG_INF if sketch_frontier_us is None else sketch_frontier_us,
+        p0=previous.prediction_seq if previous else 0,
+    )
+    return Pending(
+        store.load_streams(conn, model_id=model_id),
+        previous,
+        reset.id if reset else None,
+        frontiers,
+        rows_mod.Rows(multiclass=n_classes > 0),
+    )
 
 
 def advance(
     conn: sa.Connection,
+    pending: Pending,
     *,
     model_id: int,
     n_classes: int,
     spec: SliceSpec,
     cap: ValueCap,
     horizon_us: int,
-    grace_us: int,
     missing_negative: bool,
     as_of_us: int,
     seqs: tuple[int, int, int],
     cusum_arl0: int,
 ) -> EvidenceRun:
-    """Feed the rows that reached the evidence frontier since the last run (see module doc)."""
-    stored = store.load_streams(conn, model_id=model_id)
-    previous = store.get_cursor(conn, model_id=model_id)
-    reset = store.latest_reset(conn, model_id=model_id)
+    """Feed the rows that reached the evidence frontier since the last run (module doc):
+    backfills, then the rows before the sketch frontier, then those the deltas handed over."""
     multiclass = n_classes > 0
-    streams = {key: _decode(s, multiclass) for key, s in stored.items()}
-    e0 = previous.frontier_us if previous else _NEG_INF
-    e1 = max(e0, as_of_us - horizon_us - grace_us)
-    p0 = previous.prediction_seq if previous else 0
-    rows = _Rows()
-    backfilled = _collect(
-        conn, rows, model_id, multiclass, horizon_us, missing_negative, seqs[0], e0, e1, p0
+    previous, f = pending.previous, pending.frontiers
+    backfills, gap = rows_mod.read(
+        conn,
+        model_id=model_id,
+        multiclass=multiclass,
+        horizon_us=horizon_us,
+        missing_negative=missing_negative,
+        max_prediction_id=seqs[0],
+        frontiers=f,
     )
+    rows = backfills.then(gap).then(pending.observed)
     run = EvidenceRun(
-        streams,
-        set(stored),
-        EvidenceCursor(max(as_of_us, previous.as_of_us if previous else as_of_us), e1, *seqs),
+        {key: _decode(s, multiclass) for key, s in pending.stored.items()},
+        set(pending.stored),
+        EvidenceCursor(max(as_of_us, previous.as_of_us if previous else as_of_us), f.e1, *seqs),
         {
-            "frontier": format_instant(e1) if e1 > _NEG_INF else None,
-            "rows": len(rows.cid) + rows.skipped,
-            "backfilled": backfilled,
+            "frontier": format_instant(f.e1) if f.e1 > NEG_INF else None,
+            "rows": rows.count,
+            "backfilled": backfills.count,
             "skipped_unlabelled": rows.skipped,
         },
-        reset.id if reset else None,
+        pending.reset_id,
     )
     names = _names_of(spec, frozen_view(cap))
     _feed(run, rows, names, as_of_us=as_of_us, previous=previous, multiclass=multiclass)
     if previous is not None:
-        _count_afterwards(conn, run, names, model_id, previous, seqs)
+        for kind, pid, at, version, segments in rows_mod.afterwards(
+            conn, model_id=model_id, previous=previous, seqs=seqs
+        ):
+            for name in names(segments):
+                stream = run.streams.get((version, name))
+                if stream is not None and stream.saw(at, pid):
+                    setattr(stream, kind, getattr(stream, kind) + 1)
+                    run.touched.add((version, name))
     if not multiclass:
-        keys = [k for k, s in run.streams.items() if s.track and s.track.threshold is None]
-        tracks = cusum.assign_thresholds(
-            [run.streams[k].track for k in keys],  # type: ignore[misc]
-            target_arl0=cusum_arl0,
-        )
-        for key, track in zip(keys, tracks, strict=True):
-            if track.threshold is not None:
-                run.streams[key].track = track
-                run.touched.add(key)
+        _thresholds(run, cusum_arl0)
     return run
+
+
+def _thresholds(run: EvidenceRun, cusum_arl0: int) -> None:
+    keys = [k for k, s in run.streams.items() if s.track and s.track.threshold is None]
+    tracks = cusum.assign_thresholds(
+        [run.streams[k].track for k in keys],  # type: ignore[misc]
+        target_arl0=cusum_arl0,
+    )
+    for key, track in zip(keys, tracks, strict=True):
+        if track.threshold is not None:
+            run.streams[key].track = track
+            run.touched.add(key)
 
 
 def _names_of(spec: SliceSpec, cap: ValueCap) -> Any:
@@ -252,63 +288,9 @@ def _names_of(spec: SliceSpec, cap: ValueCap) -> Any:
     return names
 
 
-def _collect(
-    conn: sa.Connection,
-    rows: _Rows,
-    model_id: int,
-    multiclass: bool,
-    horizon_us: int,
-    missing_negative: bool,
-    p1: int,
-    e0: int,
-    e1: int,
-    p0: int,
-) -> int:
-    """Backfills first (they matured earlier), then the rows the frontier passed."""
-    p, o = predictions.c, outcomes.c
-    prob = p.probabilities if multiclass else p.probability
-    joined = (
-        sa.select(p.predicted_at_us, prob, p.version, p.segments, o.outcome, o.observed_at_us)
-        .select_from(predictions.outerjoin(outcomes, o.prediction_id == p.id))
-        .where(p.model_id == model_id, p.id <= p1)
-    )
-    queries = [joined.where(p.predicted_at_us > e0, p.predicted_at_us <= e1)]
-    if e0 > _NEG_INF:
-        queries.insert(0, joined.where(p.id > p0, p.predicted_at_us <= e0))
-    known: dict[tuple[int | None, bool], Any] = {}
-    backfilled = 0
-    for i, query in enumerate(queries):
-        before = len(rows.cid) + rows.skipped
-        ordered = query.order_by(p.predicted_at_us, p.id).execution_options(yield_per=_CHUNK)
-        for at, pr, version, segments, outcome, observed in conn.execute(ordered):
-            key = (None, False) if outcome is None else (outcome, observed <= at + horizon_us)
-            state = known.get(key)
-            if state is None:
-                state = known[key] = classify(
-                    outcome=outcome,
-                    observed_at_us=observed,
-                    predicted_at_us=at,
-                    horizon_us=horizon_us,
-                    missing_negative=missing_negative,
-                )
-            if not state.included:
-                rows.skipped += 1
-                continue
-            combo = rows.combos.get((version, segments))
-            if combo is None:
-                combo = rows.combos[(version, segments)] = len(rows.combos)
-            rows.cid.append(combo)
-            rows.at.append(at)
-            rows.y.append(state.y)
-            rows.p.append(orjson.loads(pr) if multiclass else pr)
-        if i == 0 and len(queries) == 2:
-            backfilled = len(rows.cid) + rows.skipped - before
-    return backfilled
-
-
 def _feed(
     run: EvidenceRun,
-    rows: _Rows,
+    rows: rows_mod.Rows,
     names: Any,
     *,
     as_of_us: int,
@@ -317,28 +299,26 @@ def _feed(
 ) -> None:
     if not rows.cid:
         return
-    cid = np.frombuffer(rows.cid, dtype=np.int64)
-    y = np.frombuffer(rows.y, dtype=np.int64)
-    at = np.frombuffer(rows.at, dtype=np.int64)
-    p = np.asarray(rows.p, dtype=np.float64)
+    cid, at, y, p = rows.arrays()
     # Stream -> the combinations whose rows it gets.
     members: dict[StreamKey, list[int]] = defaultdict(list)
     for (version, segments), c in rows.combos.items():
         for name in names(segments):
             members[(version, name)].append(c)
     n_combos = len(rows.combos)
-    last = np.full(n_combos, _NEG_INF, dtype=np.int64)
+    # Rows grouped by combination (stable, so each group keeps maturity order).
+    order = np.argsort(cid, kind="stable")
+    bounds = np.searchsorted(cid[order], np.arange(n_combos + 1))
+    last = np.full(n_combos, NEG_INF, dtype=np.int64)
     np.maximum.at(last, cid, at)
-    since = (previous.frontier_us, previous.prediction_seq) if previous else (_NEG_INF, 0)
+    counts = np.diff(bounds)
+    since = (previous.frontier_us, previous.prediction_seq) if previous else (NEG_INF, 0)
     if not multiclass:
         # The log likelihood ratios of a row are the same for every stream it feeds:
-        # compute them once, sum them per combination, then per stream.
+        # computed once, summed per combination, then per stream.
         template = MixtureEvidence.start()
         lr = binary_log_lr(y, p, template.params[:, 0], template.params[:, 1], eps=template.eps)
-        order = np.argsort(cid, kind="stable")
-        starts = np.searchsorted(cid[order], np.arange(n_combos))
-        per_combo = np.add.reduceat(lr[order], starts, axis=0)
-        counts = np.bincount(cid, minlength=n_combos)
+        per_combo = np.add.reduceat(lr[order], bounds[:-1], axis=0)
     for key, combos in members.items():
         stream = run.streams.get(key)
         if stream is None:
@@ -348,13 +328,13 @@ def _feed(
                 as_of_us,
                 *since,
             )
-        idx = np.flatnonzero(np.isin(cid, combos)) if len(members) > 1 else np.arange(cid.size)
+        # This stream's rows, back in maturity order.
+        idx = np.sort(np.concatenate([order[bounds[c] : bounds[c + 1]] for c in combos]))
         state = stream.state
         if multiclass:
             state = state.update(y[idx], p[idx])
         else:
-            total = per_combo[combos].sum(axis=0)
-            log_lr = np.array(state.log_lr + total)
+            log_lr = np.array(state.log_lr + per_combo[combos].sum(axis=0))
             log_lr.setflags(write=False)
             state = replace(state, log_lr=log_lr, n=state.n + int(counts[combos].sum()))
             stream.track = cusum.update(stream.track or cusum.Track(), y[idx].astype(float), p[idx])
@@ -366,44 +346,4 @@ def _feed(
         run.touched.add(key)
 
 
-def _count_afterwards(
-    conn: sa.Connection,
-    run: EvidenceRun,
-    names: Any,
-    model_id: int,
-    previous: EvidenceCursor,
-    seqs: tuple[int, int, int],
-) -> None:
-    """Count outcomes that arrived, and corrections made, after their row was fed."""
-    p, o, r = predictions.c, outcomes.c, outcome_revisions.c
-    fed = sa.and_(p.id <= previous.prediction_seq, p.predicted_at_us <= previous.frontier_us)
-    late = (
-        sa.select(p.id, p.predicted_at_us, p.version, p.segments)
-        .select_from(outcomes.join(predictions, p.id == o.prediction_id))
-        .where(o.model_id == model_id, o.id > previous.outcome_seq, o.id <= seqs[1], fed)
-    )
-    corrected = (
-        sa.select(p.id, p.predicted_at_us, p.version, p.segments)
-        .select_from(
-            outcome_revisions.join(outcomes, o.id == r.outcome_id).join(
-                predictions, p.id == o.prediction_id
-            )
-        )
-        .where(
-            o.model_id == model_id,
-            r.id > previous.revision_seq,
-            r.id <= seqs[2],
-            o.id <= previous.outcome_seq,  # the fed row had this outcome already
-            fed,
-        )
-    )
-    for query, attribute in ((late, "late_labels"), (corrected, "corrections")):
-        for pid, at, version, segments in conn.execute(query):
-            for name in names(segments):
-                stream = run.streams.get((version, name))
-                if stream is not None and stream.saw(at, pid):
-                    setattr(stream, attribute, getattr(stream, attribute) + 1)
-                    run.touched.add((version, name))
-
-
-__all__ = ["EvidenceRun", "Stream", "advance"]
+__all__ = ["EvidenceRun", "Pending", "Stream", "advance", "prepare"]

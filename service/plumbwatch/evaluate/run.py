@@ -141,6 +141,17 @@ def evaluate_model(
             rows_applied += deltas.rows
             deltas.reset()
 
+        pending = None
+        if options.evidence and not replay_backwards:
+            pending = evidence_mod.prepare(
+                conn,
+                model_id=model.id,
+                n_classes=k,
+                as_of_us=as_of_us,
+                horizon_us=horizon_us,
+                grace_us=options.evidence_grace_us,
+                sketch_frontier_us=previous.as_of_us - horizon_us if previous else None,
+            )
         deltas_mod.collect(
             conn,
             model_id=model.id,
@@ -151,6 +162,7 @@ def evaluate_model(
             seqs=seqs,
             deltas=deltas,
             flush=(_FLUSH_ROWS, flush),
+            watch=pending.watch if pending else None,
         )
         flush()
         version_now = drift.current_version(
@@ -170,7 +182,7 @@ def evaluate_model(
         raw_from = oldest_prediction_us(conn, model_id=model.id)
         current = {**stored, **touched}
         assessment = _assessment(
-            conn, model, options, windows, version_now, replay_backwards,
+            conn, model, options, windows, version_now, replay_backwards, pending,
             as_of_us=as_of_us, seqs=seqs, spec=spec, cap=cap, touched=touched,
         )  # fmt: skip
         recalibration = _advice(
@@ -247,6 +259,7 @@ def _assessment(
     windows: list[Window],
     version_now: str | None,
     replay_backwards: bool,
+    pending: evidence_mod.Pending | None,
     *,
     as_of_us: int,
     seqs: tuple[int, int, int],
@@ -257,15 +270,15 @@ def _assessment(
     decl = model.declaration
     horizon_us = decl.label_horizon_seconds * 1_000_000
     ev = None
-    if options.evidence and not replay_backwards:
+    if pending is not None:
         ev = evidence_mod.advance(
             conn,
+            pending,
             model_id=model.id,
             n_classes=len(model.classes),
             spec=spec,
             cap=cap,
             horizon_us=horizon_us,
-            grace_us=options.evidence_grace_us,
             missing_negative=decl.missing_outcome == "negative",
             as_of_us=as_of_us,
             seqs=seqs,
