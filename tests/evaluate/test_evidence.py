@@ -226,3 +226,35 @@ def test_a_reset_and_a_new_version_start_new_streams(engine: Engine) -> None:
     )
     assert v1["overall"]["n"] == 40 + labelled
     assert record["evidence_feed"]["skipped_unlabelled"] == 3 * 40 - labelled
+
+
+def test_a_reset_during_a_run_makes_it_write_nothing(
+    engine: Engine, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import plumbwatch.evaluate.run as run_mod
+    from plumbwatch.errors import Conflict
+    from plumbwatch.store.models import get
+    from plumbwatch.store.tables import evaluations
+
+    s = Scenario(seed=9, n_slices=2, rows_per_slice_day=20, days=6)
+    run_scenario(engine, s)
+    with engine.connect() as conn:
+        model = get(conn=conn, name="sim")
+        runs = conn.execute(sa.select(sa.func.count()).select_from(evaluations)).scalar_one()
+    assert model is not None
+    advance = run_mod.evidence_mod.advance
+
+    def racing(*args: Any, **kwargs: Any) -> Any:
+        # An admin resets the streams while this run is computing.
+        with engine.begin() as conn:
+            store_evidence.reset(conn, model_id=model.id, reason="race", actor="t", now_us=1)
+        return advance(*args, **kwargs)
+
+    monkeypatch.setattr(run_mod.evidence_mod, "advance", racing)
+    with pytest.raises(Conflict, match="reset during this run"):
+        evaluate_model(engine, model, as_of_us=T0_US + 7 * DAY_US, now_us=T0_US)
+    with engine.connect() as conn:
+        assert (
+            conn.execute(sa.select(sa.func.count()).select_from(evaluations)).scalar_one() == runs
+        )
+        assert conn.execute(sa.select(evidence_streams)).all() == []  # the reset stands
