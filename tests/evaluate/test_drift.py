@@ -30,12 +30,13 @@ def test_psi_and_ks_against_scipy_and_the_raw_rows() -> None:
         share = max(np.bincount(bin_index(ref)).max(), np.bincount(bin_index(cur)).max()) / n
         assert metrics["ks_statistic"] <= exact.statistic + 1e-12
         assert exact.statistic - metrics["ks_statistic"] <= share + 1e-12
-        # The p-value is scipy's asymptotic one at the grid statistic (ks_2samp's own
-        # formula for large samples), so if anything larger than on the raw rows.
+        # The p-value is scipy's asymptotic one (ks_2samp's formula for large samples) at
+        # the grid statistic, so if anything larger than on the raw rows; past an
+        # effective size of 1,000, within 0.005 (plumbwatch.stats.drift.ks_from_counts).
         assert metrics["ks_p_value"] == pytest.approx(
-            stats.kstwo.sf(metrics["ks_statistic"], round(n / 2)), rel=1e-9
+            stats.kstwo.sf(metrics["ks_statistic"], round(n / 2)), abs=5e-3
         )
-        assert metrics["ks_p_value"] >= exact.pvalue - 1e-12
+        assert metrics["ks_p_value"] >= exact.pvalue - 5e-3
         # PSI over the reference deciles: the raw-row version (stats.psi, deciles by
         # numpy.quantile) and ours (deciles rounded to grid edges) agree closely.
         assert metrics["psi"] == pytest.approx(psi(ref, cur).psi, abs=0.004)

@@ -62,6 +62,8 @@ from plumbwatch.store import evidence as store
 from plumbwatch.store.evidence import EvidenceCursor, StoredStream, StreamKey
 from plumbwatch.timefmt import format_instant
 
+_CHUNK = 65_536
+
 
 @dataclass
 class Stream:
@@ -288,6 +290,24 @@ def _names_of(spec: SliceSpec, cap: ValueCap) -> Any:
     return names
 
 
+def _log_lr_per_combo(cid: np.ndarray, y: np.ndarray, p: np.ndarray, n_combos: int) -> np.ndarray:
+    """Summed log likelihood ratios per combination. A row's ratios are the same for every
+    stream it feeds: computed once, in chunks (a first run may feed millions of rows),
+    summed per combination, then per stream by the caller."""
+    template = MixtureEvidence.start()
+    a, b = template.params[:, 0], template.params[:, 1]
+    out = np.zeros((n_combos, a.size))
+    for start in range(0, cid.size, _CHUNK):
+        part = slice(start, start + _CHUNK)
+        lr = binary_log_lr(y[part], p[part], a, b, eps=template.eps)
+        c = cid[part]
+        order = np.argsort(c, kind="stable")
+        ranked = c[order]
+        firsts = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]])
+        out[ranked[firsts]] += np.add.reduceat(lr[order], firsts, axis=0)
+    return out
+
+
 def _feed(
     run: EvidenceRun,
     rows: rows_mod.Rows,
@@ -314,11 +334,7 @@ def _feed(
     counts = np.diff(bounds)
     since = (previous.frontier_us, previous.prediction_seq) if previous else (NEG_INF, 0)
     if not multiclass:
-        # The log likelihood ratios of a row are the same for every stream it feeds:
-        # computed once, summed per combination, then per stream.
-        template = MixtureEvidence.start()
-        lr = binary_log_lr(y, p, template.params[:, 0], template.params[:, 1], eps=template.eps)
-        per_combo = np.add.reduceat(lr[order], bounds[:-1], axis=0)
+        per_combo = _log_lr_per_combo(cid, y, p, n_combos)
     for key, combos in members.items():
         stream = run.streams.get(key)
         if stream is None:

@@ -62,12 +62,38 @@ class Rows:
         self.y.append(state.y)
         self.p.append(orjson.loads(prob) if self.multiclass else prob)
 
+    def observer(self) -> Callable[[int, Any, str, str | None, RowState], None]:
+        """:meth:`observe` with everything it touches bound locally: the deltas' pass
+        calls it for every newly matured row of a first run, millions of times."""
+        combos, cid, at_, y_, p_ = self.combos, self.cid, self.at, self.y, self.p
+        add_c, add_at, add_y, add_p = cid.append, at_.append, y_.append, p_.append
+        parse = orjson.loads if self.multiclass else None
+
+        def observe(at: int, prob: Any, version: str, segments: str | None, s: RowState) -> None:
+            if not s.included:
+                self.skipped += 1  # rare: a plain attribute update will do
+                return
+            key = (version, segments)
+            combo = combos.get(key)
+            if combo is None:
+                combo = combos[key] = len(combos)
+            add_c(combo)
+            add_at(at)
+            add_y(s.y)
+            add_p(parse(prob) if parse else prob)
+
+        return observe
+
     @property
     def count(self) -> int:
         return len(self.cid) + self.skipped
 
     def then(self, later: Rows) -> Rows:
         """These rows followed by ``later``'s (one combination numbering)."""
+        if not later.count:
+            return self
+        if not self.count:
+            return later
         out = Rows(
             self.multiclass,
             dict(self.combos),
@@ -83,7 +109,8 @@ class Rows:
             if found is None:
                 found = out.combos[key] = len(out.combos)
             renumber[c] = found
-        out.cid.extend(renumber[c] for c in later.cid)
+        mapped = np.asarray(renumber, dtype=np.int64)[np.frombuffer(later.cid, np.int64)]
+        out.cid.frombytes(mapped.tobytes())
         out.at.extend(later.at)
         out.y.extend(later.y)
         out.p.extend(later.p)
@@ -113,7 +140,7 @@ class Frontiers:
 
     def watcher(self, rows: Rows) -> tuple[int, int, Callable[..., None]]:
         lower, upper = self.observed
-        return lower, upper, rows.observe
+        return lower, upper, rows.observer()
 
 
 def read(

@@ -25,7 +25,7 @@ FloatArray = NDArray[np.float64]
 IntArray = NDArray[np.intp]
 
 DEFAULT_FLOOR = 1e-4
-_EXACT_KS_LIMIT = 10_000
+_EXACT_KS_LIMIT = 1_000
 
 
 @dataclass(frozen=True)
@@ -238,10 +238,16 @@ def ks_from_counts(reference_counts: ArrayLike, current_counts: ArrayLike) -> Ks
     The p-value is the asymptotic two-sided one that scipy's ``ks_2samp``
     uses for large samples: ``kstwo.sf(D, round(n m / (n + m)))`` evaluated at
     the lower bound (so it is, if anything, too large). Above an effective size
-    of 10,000, where ``kstwo.sf`` costs tens to hundreds of milliseconds,
-    Kolmogorov's limiting distribution ``kstwobign.sf(D sqrt(en))`` stands in: it
-    differs from ``kstwo`` by less than 0.002 there (checked against scipy in
-    the tests).
+    of 1,000, where ``kstwo.sf`` costs milliseconds to seconds (a run computes it
+    for hundreds of slices), Kolmogorov's limiting distribution with Stephens'
+    correction, ``kstwobign.sf(D (sqrt(en) + 0.12 + 0.11 / sqrt(en)))``, stands
+    in: it differs from ``kstwo`` by less than 0.005 at 1,000 and 0.001 at
+    20,000 (measured here against scipy; the tests check it).
+
+    References
+    ----------
+    Stephens, "Use of the Kolmogorov-Smirnov, Cramer-von Mises and related
+    statistics without extensive tables", JRSS B 32 (1970) (from memory).
     """
     r, c = _check_pair(reference_counts, current_counts)
     n_ref, n_cur = float(r.sum()), float(c.sum())
@@ -251,7 +257,8 @@ def ks_from_counts(reference_counts: ArrayLike, current_counts: ArrayLike) -> Ks
     upper = float(max(np.max(f[1:] - g[:-1]), np.max(g[1:] - f[:-1]), d))
     en = n_ref * n_cur / (n_ref + n_cur)
     if en > _EXACT_KS_LIMIT:
-        p = float(np.clip(stats.kstwobign.sf(d * math.sqrt(en)), 0.0, 1.0))
+        root = math.sqrt(en)
+        p = float(np.clip(stats.kstwobign.sf(d * (root + 0.12 + 0.11 / root)), 0.0, 1.0))
     else:
         p = float(np.clip(stats.kstwo.sf(d, max(1, round(en))), 0.0, 1.0))
     return KsResult(d, p, min(upper, 1.0), n_ref, n_cur, "grid_lower_bound")
