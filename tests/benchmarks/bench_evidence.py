@@ -15,8 +15,8 @@ day, 365 daily evaluations, label horizon 3 days, evidence grace 1 day, K = 41 s
    contrast).
 2. Detection: zone z07's odds x1.5 from day 100; the delay in days until its
    evidence crosses ln(41/0.01), and until its CUSUM pair (threshold simulated as the
-   service does, ARL0 10,000 rows) signals; the CUSUM's false signals in the 39 calm
-   zones over the year.
+   service does, ARL0 10,000 rows) is at or past its threshold at a run's end; the
+   CUSUM's false signals (rises past the threshold) in the 39 calm zones.
 3. With ``--real-path``: the drift scenario of one seed through the real path
    (store ingest, ``evaluate_model`` once a simulated day, SQLite in a temporary
    directory), its crossing day (which must equal the reference's) and the CPU time
@@ -58,13 +58,13 @@ DRIFT = "zone:z07"
 LAG_DAYS = 4  # horizon 3 days + grace 1 day
 
 
-def cusum_year(s: Scenario) -> dict[int, int | None]:
-    """First run at which each zone's CUSUM pair signals (None: never), fed as the
-    service feeds it: one batch per run, in maturity order, threshold simulated once the
-    case mix froze (at most two new simulations per run, as the service does)."""
+def cusum_year(s: Scenario) -> np.ndarray:
+    """Whether each zone's CUSUM pair is at or past its threshold at each run's end,
+    shape (days, zones), fed as the service feeds it: one batch per run in maturity
+    order, threshold simulated once the case mix froze (one new simulation per run)."""
     tracks = [cusum.Track() for _ in range(s.n_slices)]
     later: dict[int, list[tuple[np.ndarray, np.ndarray, np.ndarray]]] = {}
-    first: dict[int, int | None] = dict.fromkeys(range(s.n_slices))
+    out = np.zeros((s.days, s.n_slices), dtype=bool)
     for day in range(s.days):
         d = day_rows(s, day)
         run = -(-(d.predicted_at_us - T0_US) // DAY_US) + LAG_DAYS - 1
@@ -76,10 +76,13 @@ def cusum_year(s: Scenario) -> dict[int, int | None]:
                 mine = zones == z
                 tracks[z] = cusum.update(tracks[z], y[mine].astype(float), p[mine])
         tracks = cusum.assign_thresholds(tracks, target_arl0=10_000)
-        for z, t in enumerate(tracks):
-            if first[z] is None and t.threshold is not None and any(t.chart.signalled(t.threshold)):
-                first[z] = day
-    return first
+        out[day] = [t.signalled for t in tracks]
+    return out
+
+
+def episodes(on: np.ndarray) -> int:
+    """Times a chart went from below its threshold to at or past it, at run ends."""
+    return int(np.sum(on[1:] & ~on[:-1]) + on[0])
 
 
 def main() -> None:
@@ -110,9 +113,10 @@ def main() -> None:
         hit = np.flatnonzero(log_e[:, col] >= threshold)
         delays.append(int(hit[0]) - 100 if hit.size else None)
         other_crossings += bool((np.delete(log_e, col, axis=1) >= threshold).any())
-        first = cusum_year(s)
-        cusum_delays.append(first[7] - 100 if first[7] is not None else None)
-        calm_signals += sum(1 for z, d in first.items() if z != 7 and d is not None)
+        on = cusum_year(s)
+        after = np.flatnonzero(on[100:, 7])
+        cusum_delays.append(int(after[0]) if after.size else None)
+        calm_signals += sum(episodes(on[:, z]) for z in range(s.n_slices) if z != 7)
         print(f"  drift seed {seed}: evidence +{delays[-1]} d, CUSUM +{cusum_delays[-1]} d")
 
     real = None
@@ -163,7 +167,12 @@ def main() -> None:
             f"  CUSUM (ARL0 10,000 rows) delay: median {statistics.median(ok_c)}, "
             f"min {min(ok_c)}, max {max(ok_c)}; never: {len(cusum_delays) - len(ok_c)}"
         )
-    print(f"  CUSUM false signals in calm zones: {calm_signals} of {39 * len(delays)} zone-years")
+    years = 39 * len(delays)
+    print(
+        f"  CUSUM false signals in calm zones: {calm_signals} in {years} zone-years "
+        f"({calm_signals / years:.2f} per zone-year of 73,000 rows, seen at run ends; the "
+        "charts are not restarted after a signal)"
+    )
     if real:
         print(
             f"real path, seed 2000: crossing +{real[0]} d (equals the reference); "

@@ -93,8 +93,10 @@ def resolve_baselines(
     window_days: int,
     complete_day: int,
     touched: dict[tuple[str, int, str], Bucket],
+    wanted: set[str],
 ) -> Baselines:
-    """Baselines of every version with matured rows, and their buckets summed per slice.
+    """Baselines of every version with matured rows, and for the ``wanted`` versions
+    their buckets summed per slice.
 
     ``complete_day``: the first day not yet complete (where windows end); ``touched``:
     the buckets this run changed, which are newer than the stored ones.
@@ -114,19 +116,17 @@ def resolve_baselines(
             if version not in fixed and first + window_days <= complete_day:
                 out.days[version] = (first, first + window_days)
                 out.fixed_now.append((version, first, first + window_days))
-    if out.days:
-        lo = min(a for a, _ in out.days.values())
-        hi = max(b for _, b in out.days.values())
+    sums: dict[tuple[str, str], Bucket] = defaultdict(lambda: Bucket(empty_sketch(k)))
+    # One read per distinct baseline span (versions share a span when it is declared).
+    for lo, hi in sorted({out.days[v] for v in wanted if v in out.days}):
         found = store_sketches.load_buckets(
             conn, model_id=model.id, day_from=lo, day_to=hi, n_classes=k
         )
         found.update((key, b) for key, b in touched.items() if lo <= key[1] < hi)
-        sums: dict[tuple[str, str], Bucket] = defaultdict(lambda: Bucket(empty_sketch(k)))
-        for (version, day, name), bucket in found.items():
-            days = out.days.get(version)
-            if days and days[0] <= day < days[1]:
+        for (version, _, name), bucket in found.items():
+            if version in wanted and out.days.get(version) == (lo, hi):
                 sums[(version, name)] = sums[(version, name)] + bucket
-        out.buckets = dict(sums)
+    out.buckets = dict(sums)
     return out
 
 

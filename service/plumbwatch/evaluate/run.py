@@ -183,7 +183,7 @@ def evaluate_model(
         current = {**stored, **touched}
         assessment = _assessment(
             conn, model, options, windows, version_now, replay_backwards, pending,
-            as_of_us=as_of_us, seqs=seqs, spec=spec, cap=cap, touched=touched,
+            as_of_us=as_of_us, seqs=seqs, spec=spec, cap=cap, touched=touched, buckets=current,
         )  # fmt: skip
         recalibration = _advice(
             conn, model, options, windows, current, assessment, spec=spec, cap=cap
@@ -266,6 +266,7 @@ def _assessment(
     spec: SliceSpec,
     cap: ValueCap,
     touched: dict[BucketKey, Bucket],
+    buckets: dict[BucketKey, Bucket],
 ) -> Assessment:
     decl = model.declaration
     horizon_us = decl.label_horizon_seconds * 1_000_000
@@ -287,12 +288,16 @@ def _assessment(
     baselines = None
     if options.evidence:
         first = windows[0]  # the model's first declared window sets the baseline's length
+        in_windows = {
+            v for v, day, _ in buckets if any(w.first_day <= day < w.end_day for w in windows)
+        }
         baselines = drift.resolve_baselines(
             conn,
             model,
             window_days=first.end_day - first.first_day,
             complete_day=first.end_day,
             touched=touched,
+            wanted=in_windows | ({version_now} if version_now else set()),
         )
         if replay_backwards:
             baselines.fixed_now = []
