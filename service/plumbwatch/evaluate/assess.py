@@ -12,17 +12,25 @@ prediction.
 
 from __future__ import annotations
 
+from collections import defaultdict
 from dataclasses import dataclass, field
 from typing import Any
 
+import sqlalchemy as sa
+
+from plumbwatch.evaluate import advice, advice_multiclass, verdicts
 from plumbwatch.evaluate import drift as drift_mod
+from plumbwatch.evaluate import evidence as evidence_mod
 from plumbwatch.evaluate import fdr as fdr_mod
-from plumbwatch.evaluate import verdicts
 from plumbwatch.evaluate.cohorts import Window
 from plumbwatch.evaluate.drift import Baselines
 from plumbwatch.evaluate.evidence import EvidenceRun
-from plumbwatch.evaluate.metrics import worst
-from plumbwatch.store.sketches import Bucket
+from plumbwatch.evaluate.immature import frozen_view
+from plumbwatch.evaluate.metrics import health, worst
+from plumbwatch.evaluate.options import Options
+from plumbwatch.evaluate.slices import SliceSpec, ValueCap
+from plumbwatch.store.models import MonitoredModel
+from plumbwatch.store.sketches import Bucket, BucketKey, empty_sketch
 
 _EVIDENCE = ("log_evidence", "log_threshold")
 
@@ -173,4 +181,121 @@ class Assessment:
             entry["signals"] = {"score_drift": exceeds}
 
 
-__all__ = ["Assessment"]
+def build(
+    conn: sa.Connection,
+    model: MonitoredModel,
+    options: Options,
+    windows: list[Window],
+    version_now: str | None,
+    replay_backwards: bool,
+    pending: evidence_mod.Pending | None,
+    *,
+    as_of_us: int,
+    seqs: tuple[int, int, int],
+    spec: SliceSpec,
+    cap: ValueCap,
+    touched: dict[BucketKey, Bucket],
+    buckets: dict[BucketKey, Bucket],
+) -> Assessment:
+    """Advance the evidence streams and resolve the baselines for one run."""
+    decl = model.declaration
+    horizon_us = decl.label_horizon_seconds * 1_000_000
+    ev = None
+    if pending is not None:
+        ev = evidence_mod.advance(
+            conn,
+            pending,
+            model_id=model.id,
+            n_classes=len(model.classes),
+            spec=spec,
+            cap=cap,
+            horizon_us=horizon_us,
+            missing_negative=decl.missing_outcome == "negative",
+            as_of_us=as_of_us,
+            seqs=seqs,
+            cusum_arl0=options.cusum_arl0,
+        )
+    baselines = None
+    if options.evidence:
+        first = windows[0]  # the model's first declared window sets the baseline's length
+        in_windows = {
+            v for v, day, _ in buckets if any(w.first_day <= day < w.end_day for w in windows)
+        }
+        baselines = drift_mod.resolve_baselines(
+            conn,
+            model,
+            window_days=first.end_day - first.first_day,
+            complete_day=first.end_day,
+            touched=touched,
+            wanted=in_windows | ({version_now} if version_now else set()),
+        )
+        if replay_backwards:
+            baselines.fixed_now = []
+    return Assessment(
+        evidence=ev,
+        evidence_missing="backwards_replay" if replay_backwards else "evidence_off",
+        baselines=baselines,
+        current_version=version_now,
+        tolerances=options.tolerances,
+        evidence_alpha=options.evidence_alpha,
+        fdr_alpha=options.fdr_alpha,
+        cusum_arl0=options.cusum_arl0,
+    )
+
+
+def recalibration(
+    conn: sa.Connection,
+    model: MonitoredModel,
+    options: Options,
+    windows: list[Window],
+    buckets: dict[BucketKey, Bucket],
+    assessment: Assessment,
+    *,
+    spec: SliceSpec,
+    cap: ValueCap,
+) -> dict[str, Any] | None:
+    """Advice on the latest matured window: the shortest declared window in which the
+    current version's overall slice has enough events for a verdict (``min_events``)."""
+    version = assessment.current_version
+    if not options.evidence or version is None or assessment.baselines is None:
+        return None
+    k = len(model.classes)
+    for w in sorted(windows, key=lambda w: w.end_day - w.first_day):
+        sums: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(k)))
+        for (v, day, name), b in buckets.items():
+            if v == version and w.first_day <= day < w.end_day:
+                sums[name] = sums[name] + b
+        enough = {
+            name
+            for name, b in sums.items()
+            if health(b, min_events=options.min_events, multiclass_model=k > 0) == "ok"
+        }
+        if "overall" in enough:
+            break
+    else:
+        return None
+    if k:
+        return advice_multiclass.advise_multiclass(
+            conn,
+            model_id=model.id,
+            version=version,
+            window=w,
+            horizon_us=model.declaration.label_horizon_seconds * 1_000_000,
+            spec=spec,
+            cap=frozen_view(cap),
+            window_buckets=sums,
+            baselines=assessment.baselines.buckets,
+            enough=enough,
+            tol=options.tolerances,
+        )
+    return advice.advise(
+        buckets=buckets,
+        version=version,
+        window=w,
+        baselines=assessment.baselines.buckets,
+        enough=enough,
+        tol=options.tolerances,
+    )
+
+
+__all__ = ["Assessment", "build", "recalibration"]

@@ -12,23 +12,21 @@ from __future__ import annotations
 
 from collections import ChainMap, defaultdict
 from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Any
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
-from plumbwatch.config import Settings
 from plumbwatch.errors import Conflict
-from plumbwatch.evaluate import advice, advice_multiclass, drift
+from plumbwatch.evaluate import assess, drift
 from plumbwatch.evaluate import deltas as deltas_mod
 from plumbwatch.evaluate import evidence as evidence_mod
 from plumbwatch.evaluate.assess import Assessment
 from plumbwatch.evaluate.cohorts import Window, frontier, window
-from plumbwatch.evaluate.immature import frozen_view, immature_summary
+from plumbwatch.evaluate.immature import immature_summary
 from plumbwatch.evaluate.metrics import health, slice_metrics, worst
+from plumbwatch.evaluate.options import Options
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
-from plumbwatch.evaluate.verdicts import Tolerances
 from plumbwatch.store import evaluations as store_evaluations
 from plumbwatch.store import evidence as store_evidence
 from plumbwatch.store import sketches as store_sketches
@@ -39,39 +37,7 @@ from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
 from plumbwatch.timefmt import format_instant, parse_duration
 
 _FLUSH_ROWS = 200_000
-
-
-@dataclass(frozen=True)
-class Options:
-    slice_cap: int = 50
-    min_events: int = 100
-    evidence_alpha: float = 0.01  # paging threshold K / alpha for K slices
-    fdr_alpha: float = 0.05  # per-run FDR, sets `watch` only
-    materiality_ece: float = 0.03  # on ece_debiased
-    materiality_log_oe: float = 0.1  # on |ln O/E|
-    evidence_grace_us: int = 86_400 * 1_000_000  # see evaluate/evidence.py
-    cusum_arl0: int = 10_000  # in-control mean run length of a slice's CUSUM pair, rows
-    # Off: no evidence, drift, FDR or advice (health from data volume alone); for
-    # benchmarks that measure what they cost.
-    evidence: bool = True
-
-    @property
-    def tolerances(self) -> Tolerances:
-        return Tolerances(self.materiality_ece, self.materiality_log_oe)
-
-    @classmethod
-    def from_settings(cls, settings: Settings, **overrides: Any) -> Options:
-        values: dict[str, Any] = {
-            "slice_cap": settings.slice_cap,
-            "min_events": settings.min_events,
-            "evidence_alpha": settings.evidence_alpha,
-            "fdr_alpha": settings.fdr_alpha,
-            "materiality_ece": settings.materiality_ece,
-            "materiality_log_oe": settings.materiality_log_oe,
-            "evidence_grace_us": settings.evidence_grace_micros,
-            "cusum_arl0": settings.cusum_arl0,
-        }
-        return cls(**{**values, **overrides})
+_DEFAULTS = Options()
 
 
 # Called inside the run's write transaction, after the record is stored, with
@@ -94,7 +60,7 @@ def evaluate_model(
     *,
     as_of_us: int,
     now_us: int,
-    options: Options = Options(),
+    options: Options = _DEFAULTS,
     notify: bool = True,
     after_record: AfterRecord | None = None,
 ) -> dict[str, Any]:
@@ -181,11 +147,11 @@ def evaluate_model(
         )
         raw_from = oldest_prediction_us(conn, model_id=model.id)
         current = {**stored, **touched}
-        assessment = _assessment(
+        assessment = assess.build(
             conn, model, options, windows, version_now, replay_backwards, pending,
             as_of_us=as_of_us, seqs=seqs, spec=spec, cap=cap, touched=touched, buckets=current,
         )  # fmt: skip
-        recalibration = _advice(
+        recalibration = assess.recalibration(
             conn, model, options, windows, current, assessment, spec=spec, cap=cap
         )
     record = _record(
@@ -250,122 +216,6 @@ def evaluate_model(
                 write, evaluation_id=evaluation_id, health=record["health"], record=record
             )
     return record
-
-
-def _assessment(
-    conn: sa.Connection,
-    model: MonitoredModel,
-    options: Options,
-    windows: list[Window],
-    version_now: str | None,
-    replay_backwards: bool,
-    pending: evidence_mod.Pending | None,
-    *,
-    as_of_us: int,
-    seqs: tuple[int, int, int],
-    spec: SliceSpec,
-    cap: ValueCap,
-    touched: dict[BucketKey, Bucket],
-    buckets: dict[BucketKey, Bucket],
-) -> Assessment:
-    decl = model.declaration
-    horizon_us = decl.label_horizon_seconds * 1_000_000
-    ev = None
-    if pending is not None:
-        ev = evidence_mod.advance(
-            conn,
-            pending,
-            model_id=model.id,
-            n_classes=len(model.classes),
-            spec=spec,
-            cap=cap,
-            horizon_us=horizon_us,
-            missing_negative=decl.missing_outcome == "negative",
-            as_of_us=as_of_us,
-            seqs=seqs,
-            cusum_arl0=options.cusum_arl0,
-        )
-    baselines = None
-    if options.evidence:
-        first = windows[0]  # the model's first declared window sets the baseline's length
-        in_windows = {
-            v for v, day, _ in buckets if any(w.first_day <= day < w.end_day for w in windows)
-        }
-        baselines = drift.resolve_baselines(
-            conn,
-            model,
-            window_days=first.end_day - first.first_day,
-            complete_day=first.end_day,
-            touched=touched,
-            wanted=in_windows | ({version_now} if version_now else set()),
-        )
-        if replay_backwards:
-            baselines.fixed_now = []
-    return Assessment(
-        evidence=ev,
-        evidence_missing="backwards_replay" if replay_backwards else "evidence_off",
-        baselines=baselines,
-        current_version=version_now,
-        tolerances=options.tolerances,
-        evidence_alpha=options.evidence_alpha,
-        fdr_alpha=options.fdr_alpha,
-        cusum_arl0=options.cusum_arl0,
-    )
-
-
-def _advice(
-    conn: sa.Connection,
-    model: MonitoredModel,
-    options: Options,
-    windows: list[Window],
-    buckets: dict[BucketKey, Bucket],
-    assessment: Assessment,
-    *,
-    spec: SliceSpec,
-    cap: ValueCap,
-) -> dict[str, Any] | None:
-    """Advice on the latest matured window: the shortest declared window in which the
-    current version's overall slice has enough events for a verdict (``min_events``)."""
-    version = assessment.current_version
-    if not options.evidence or version is None or assessment.baselines is None:
-        return None
-    k = len(model.classes)
-    for w in sorted(windows, key=lambda w: w.end_day - w.first_day):
-        sums: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(k)))
-        for (v, day, name), b in buckets.items():
-            if v == version and w.first_day <= day < w.end_day:
-                sums[name] = sums[name] + b
-        enough = {
-            name
-            for name, b in sums.items()
-            if health(b, min_events=options.min_events, multiclass_model=k > 0) == "ok"
-        }
-        if "overall" in enough:
-            break
-    else:
-        return None
-    if k:
-        return advice_multiclass.advise_multiclass(
-            conn,
-            model_id=model.id,
-            version=version,
-            window=w,
-            horizon_us=model.declaration.label_horizon_seconds * 1_000_000,
-            spec=spec,
-            cap=frozen_view(cap),
-            window_buckets=sums,
-            baselines=assessment.baselines.buckets,
-            enough=enough,
-            tol=options.tolerances,
-        )
-    return advice.advise(
-        buckets=buckets,
-        version=version,
-        window=w,
-        baselines=assessment.baselines.buckets,
-        enough=enough,
-        tol=options.tolerances,
-    )
 
 
 def _windows(names: list[str], *, frontier_us: int) -> list[Window]:
