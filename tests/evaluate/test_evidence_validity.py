@@ -70,9 +70,7 @@ def test_null_false_alarms_at_full_width() -> None:
     for seed in seeds:
         s = Scenario(seed=100 + seed, days=90, positives_first=True)
         found["maturity"] += false_alarm(reference_log_evidence(s), alpha=ALPHA)
-        found["arrival"] += false_alarm(
-            reference_log_evidence(s, arrival_order=True), alpha=ALPHA
-        )
+        found["arrival"] += false_alarm(reference_log_evidence(s, arrival_order=True), alpha=ALPHA)
     assert found["maturity"] / len(seeds) <= margin(ALPHA, len(seeds))
     assert found["arrival"] == len(seeds)
 
