@@ -38,6 +38,7 @@ bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_stats.py
 	$(BIN)/python tests/benchmarks/bench_ingest.py
 	$(BIN)/python tests/benchmarks/bench_evaluate.py --engine sqlite
+	$(BIN)/python tests/benchmarks/bench_evidence.py
 
 demo: $(STAMP)
 	mkdir -p var
