@@ -11,9 +11,10 @@ from sqlalchemy.engine import Engine
 
 from plumbwatch import __version__
 from plumbwatch.api import errors
-from plumbwatch.api.routes import evaluations, health, models, outcomes, predictions
+from plumbwatch.api.routes import alerts, evaluations, health, models, outcomes, predictions
 from plumbwatch.config import Settings
 from plumbwatch.evaluate.run import Options
+from plumbwatch.jobs.alerting import Alerting
 from plumbwatch.jobs.schedule import start_scheduler
 from plumbwatch.jobs.tick import Evaluator, holder_name
 from plumbwatch.store.engine import create_engine
@@ -43,12 +44,15 @@ def create_app(
         require_current(engine)
         apply_declarations(engine, settings.models, now_us=clock_us())
         app.state.writer.start()
+        # Deliveries run whether or not the evaluation scheduler does.
+        app.state.alerting.start()
         scheduler = start_scheduler(app.state.evaluator, settings, clock_us)
         try:
             yield
         finally:
             if scheduler is not None:
                 scheduler.shutdown(wait=True)
+            app.state.alerting.stop()
             app.state.writer.stop()
 
     app = FastAPI(
@@ -61,13 +65,17 @@ def create_app(
     app.state.engine = engine
     app.state.clock_us = clock_us
     app.state.writer = GroupWriter(engine)
+    holder = holder_name()
+    app.state.alerting = Alerting(engine, settings, holder=holder, clock_us=clock_us)
     app.state.evaluator = Evaluator(
         engine,
-        holder_name(),
+        holder,
         Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
         retention_days=settings.retention_days,
+        after_record=app.state.alerting.after_record,
+        after_commit=app.state.alerting.wake,
     )
     errors.install(app)
-    for module in (health, models, predictions, outcomes, evaluations):
+    for module in (health, models, predictions, outcomes, evaluations, alerts):
         app.include_router(module.router)
     return app

@@ -135,16 +135,20 @@ def _token(engine: Engine, args: argparse.Namespace) -> int:
 
 def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
     from plumbwatch.evaluate.run import Options
+    from plumbwatch.jobs.alerting import Alerting
     from plumbwatch.jobs.tick import Evaluator, holder_name
 
     now_us = _now_us()
     as_of_us = to_micros(parse_instant(args.as_of)) if args.as_of else now_us
     with _engine(settings) as engine:
         require_current(engine)
+        holder = holder_name()
+        alerting = Alerting(engine, settings, holder=holder, clock_us=_now_us)
         evaluator = Evaluator(
             engine,
-            holder_name(),
+            holder,
             Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
+            after_record=alerting.after_record,
         )
         if args.as_of:
             if not args.model:
@@ -155,12 +159,20 @@ def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
                 model, as_of_us=as_of_us, now_us=now_us, notify=not args.no_notify
             )
             print(f"{model.name}: {record['health']} as of {record['as_of']}")
-            return 0
-        results = evaluator.tick(now_us=now_us, model_name=args.model, notify=not args.no_notify)
+            results = {}
+        else:
+            results = evaluator.tick(
+                now_us=now_us, model_name=args.model, notify=not args.no_notify
+            )
+        # One sending pass, for set-ups where no server runs (cron); what fails here
+        # waits in the outbox for the next pass of a server or of this command.
+        sent = alerting.run_pass()
     for name, outcome in results.items():
         print(f"{name}: {outcome}")
-    if not results:
+    if not results and not args.as_of:
         print("no active models")
+    if sent:
+        print(f"{sent} alert deliveries attempted")
     return 0
 
 
