@@ -91,7 +91,8 @@ class Sender:
         for i, delivery in enumerate(claimed):
             # Never send on a claim that could run out mid-attempt: another server may
             # take the row then. Give the rest back for the next pass.
-            margin = int((self.policy.timeout_s * 2 + 5) * SECOND_US)
+            # An attempt may take a timeout per phase (connect, send, answer).
+            margin = int((self.policy.timeout_s * 3 + 1) * SECOND_US)
             if self.clock_us() + margin > now + claim_us:
                 with self._write() as conn, conn.begin():
                     store_deliveries.release(
