@@ -69,3 +69,15 @@ def wait_until(check: Callable[[], bool], *, timeout: float = 30.0, what: str = 
         if time.monotonic() > deadline:
             raise AssertionError(f"timed out after {timeout} s waiting for {what or check}")
         time.sleep(0.05)
+
+
+def settle(svc: Service, timeout: float = 30.0) -> None:
+    """Wait until the service's sender has nothing due: on SQLite a test's own
+    read-then-write transaction would otherwise race the sender's writes."""
+    from plumbwatch.store import deliveries as store_deliveries
+
+    def idle() -> bool:
+        with svc.engine.connect() as conn:
+            return store_deliveries.counts(conn)["pending"] == 0
+
+    wait_until(idle, timeout=timeout, what="no pending deliveries")
