@@ -8,6 +8,7 @@ for a mistake in input.
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -23,6 +24,16 @@ from plumbwatch.store.engine import create_engine
 from plumbwatch.store.migrate import current_revision, require_current, upgrade
 from plumbwatch.store.models import get_or_raise
 from plumbwatch.timefmt import format_instant, parse_duration, parse_instant, to_micros
+
+
+def _log_to_stderr() -> None:
+    """Our own log lines (deliveries, the log sink's alerts, scheduler ticks) on stderr,
+    beside uvicorn's, unless the embedding program set up logging itself."""
+    root = logging.getLogger()
+    if not root.handlers:
+        logging.basicConfig(
+            level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s: %(message)s"
+        )
 
 
 def _now_us() -> int:
@@ -61,6 +72,7 @@ def cmd_serve(settings: Settings, args: argparse.Namespace) -> int:
 
     host = args.host or settings.host
     port = args.port or settings.port
+    _log_to_stderr()
     with _engine(settings) as engine:
         require_current(engine)  # refuse early, with the command that fixes it
         app = create_app(settings, engine=engine)
@@ -140,6 +152,7 @@ def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
 
     now_us = _now_us()
     as_of_us = to_micros(parse_instant(args.as_of)) if args.as_of else now_us
+    _log_to_stderr()
     with _engine(settings) as engine:
         require_current(engine)
         holder = holder_name()
