@@ -118,12 +118,17 @@ def drifting(tmp_path_factory: pytest.TempPathFactory, receiver: Receiver) -> Ou
 
 
 def test_calibrated_streams_raise_no_false_alert(calibrated: list[Outcome]) -> None:
-    with_false = [o for o in calibrated if o.raised]
+    # A calibration alert on a calibrated stream is a false alert. Freshness alerts
+    # (the stream stopping) would be true ones; they are reported, and counted apart.
+    def false(o: Outcome) -> list[dict[str, Any]]:
+        return [a for a in o.raised if a["rule"] == "calibration"]
+
+    with_false = [o for o in calibrated if false(o)]
     report = {
         "alpha": ALPHA,
         "seeds": len(calibrated),
         "seeds_with_a_false_alert": len(with_false),
-        "alerts": [(o.seed, a["rule"], a["slice"]) for o in with_false for a in o.raised],
+        "alerts": [(o.seed, a["rule"], a["slice"]) for o in calibrated for a in o.raised],
     }
     print("calibrated:", orjson.dumps(report).decode())
     assert all(len(o.as_of) == 365 for o in calibrated)
