@@ -131,6 +131,7 @@ def test_starttls_and_login(tmp_path: Path) -> None:
             username="plumbwatch",
             password="not-the-pass",
             ca_file=str(ca_file),
+            timeout_s=2,  # this server answers a failed login by going quiet
         )
         with pytest.raises(SinkError) as caught:
             wrong.send(event_id="evt_bad", body=BODY)

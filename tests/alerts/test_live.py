@@ -25,8 +25,8 @@ def _env(url: str, secret: str, **extra: str) -> dict[str, str]:
     return {
         "PLUMBWATCH_WEBHOOK_URL": url,
         "PLUMBWATCH_WEBHOOK_SECRET": secret,
-        "PLUMBWATCH_DELIVERY_TIMEOUT": "PT2S",
-        "PLUMBWATCH_DELIVERY_CLAIM": "PT8S",
+        "PLUMBWATCH_DELIVERY_TIMEOUT": "PT1S",
+        "PLUMBWATCH_DELIVERY_CLAIM": "PT5S",
         "PLUMBWATCH_DELIVERY_RETRY_INITIAL": "PT0.2S",
         "PLUMBWATCH_DELIVERY_POLL_INTERVAL": "PT0.2S",
         **extra,
@@ -98,7 +98,7 @@ def test_killed_between_storing_and_sending_delivers_after_restart(
         assert [r.state for r in hook] == ["pending"]  # stored, not delivered
         assert rx.accepted() == []
         with live.served(database_url, tmp_path / "b.log", env=env) as again:
-            # The dead server's claim runs out (PT8S), then the new one sends.
+            # The dead server's claim runs out (PT5S), then the new one sends.
             wait_until(lambda: len(rx.accepted()) >= 1, timeout=60, what="redelivery")
             time.sleep(1.0)
             log = again.log_text()
