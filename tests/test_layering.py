@@ -9,7 +9,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "service" / "plumbwatch"
 
 # Room -> the plumbwatch rooms it may import. Top-level modules (config, errors,
 # timefmt, declarations, validation) are shared vocabulary below every room but stats.
-SHARED = {"errors", "timefmt", "declarations", "validation", "config"}
+SHARED = {"errors", "timefmt", "declarations", "validation", "config", "rulespec"}
 ALLOWED = {
     "stats": set(),
     "store": {"stats"} | SHARED,

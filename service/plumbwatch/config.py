@@ -6,20 +6,49 @@ Values come from, highest priority first: explicit keyword arguments,
 
 The TOML file may also declare monitored models under ``[models.<name>]``
 tables with the body of ``PUT /v1/models/{model}``; they are applied at start.
+It may declare alert sinks under ``[sinks.<name>]`` and routes under ``[routes]``
+(see ``plumbwatch.alerts.sinks``). Secrets (webhook secrets, the SMTP password)
+come from the environment only, never from the file.
 """
 
 from __future__ import annotations
 
+import base64
+import binascii
 import os
 import tomllib
 from pathlib import Path
 from typing import Any
 
-from pydantic import Field, field_validator
+from pydantic import Field, SecretStr, field_validator
 from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict
 
 from plumbwatch.errors import ConfigError
 from plumbwatch.timefmt import parse_duration
+
+WEBHOOK_SECRET_PREFIX = "whsec_"
+
+
+def decode_webhook_secret(secret: str) -> bytes:
+    """The HMAC key of a Standard Webhooks secret (``whsec_`` + base64).
+
+    Raises ValueError with a message that never contains the secret.
+    """
+    if not secret.startswith(WEBHOOK_SECRET_PREFIX):
+        raise ValueError(f"a webhook secret starts with {WEBHOOK_SECRET_PREFIX}")
+    body = secret[len(WEBHOOK_SECRET_PREFIX) :]
+    try:
+        key = base64.b64decode(body + "=" * (-len(body) % 4), validate=True)
+    except (ValueError, binascii.Error):
+        raise ValueError(f"a webhook secret is {WEBHOOK_SECRET_PREFIX} + base64") from None
+    if len(key) < 16:
+        raise ValueError("a webhook secret holds at least 16 bytes (24 base64 characters)")
+    return key
+
+
+# Secrets are read from the environment only, so a config file can be shared or
+# committed without leaking them.
+_ENV_ONLY = {"webhook_secret", "smtp_password"}
 
 
 class _TomlSource(PydanticBaseSettingsSource):
@@ -36,6 +65,12 @@ class _TomlSource(PydanticBaseSettingsSource):
                 self._data = tomllib.loads(file.read_text(encoding="utf-8"))
             except tomllib.TOMLDecodeError as exc:
                 raise ConfigError(f"config file {path} is not valid TOML: {exc}") from exc
+            secrets = sorted(set(self._data) & _ENV_ONLY)
+            if secrets:
+                raise ConfigError(
+                    f"config file {path} sets {', '.join(secrets)}: secrets come from the "
+                    "environment only (PLUMBWATCH_" + secrets[0].upper() + ")"
+                )
 
     def get_field_value(self, field: Any, field_name: str) -> tuple[Any, str, bool]:
         return self._data.get(field_name), field_name, False
@@ -95,10 +130,75 @@ class Settings(BaseSettings):
         default_factory=dict, description="model declarations from the TOML file"
     )
 
-    @field_validator("future_tolerance", "evaluation_interval", "evidence_grace")
+    # -- alerts ----------------------------------------------------------------------------
+    no_predictions_after: str = Field(
+        "P1D", description="default rule: alert when no prediction arrived for this long"
+    )
+    no_outcomes_after: str = Field(
+        "P2D", description="default rule: alert when rows matured this long without outcomes"
+    )
+    public_url: str | None = Field(
+        None, description="base of links to status pages (default http://host:port)"
+    )
+    webhook_url: str | None = Field(None, description="one webhook sink without a config file")
+    webhook_secret: SecretStr | None = Field(
+        None, description="whsec_ + base64; several separated by spaces during a rotation"
+    )
+    smtp_host: str | None = Field(None, description="email sink: SMTP server (unset: no email)")
+    smtp_port: int = Field(587, ge=1, le=65535)
+    smtp_starttls: bool = Field(True, description="upgrade the SMTP connection with STARTTLS")
+    smtp_ca_file: str | None = Field(None, description="CA bundle for a private SMTP server")
+    smtp_username: str | None = None
+    smtp_password: SecretStr | None = None
+    smtp_from: str = "plumbwatch@localhost"
+    email_to: str | None = Field(None, description="recipients, separated by commas or spaces")
+    delivery_poll_interval: str = Field("PT2S", description="how often the sender looks")
+    delivery_retry_initial: str = Field("PT10S", description="first retry delay (doubles)")
+    delivery_retry_max: str = Field("PT10M", description="longest delay between attempts")
+    delivery_max_age: str = Field("P1D", description="then a delivery is given up (failed)")
+    delivery_timeout: str = Field("PT10S", description="one attempt's network timeout")
+    delivery_claim: str = Field(
+        "PT2M", description="how long a server owns a delivery it is sending"
+    )
+    sinks: dict[str, dict[str, Any]] = Field(
+        default_factory=dict, description="extra sinks from the TOML file ([sinks.<name>])"
+    )
+    routes: dict[str, list[str]] = Field(
+        default_factory=dict, description="severity -> sink names ([routes] in the TOML file)"
+    )
+
+    @field_validator(
+        "future_tolerance",
+        "evaluation_interval",
+        "evidence_grace",
+        "no_predictions_after",
+        "no_outcomes_after",
+        "delivery_poll_interval",
+        "delivery_retry_initial",
+        "delivery_retry_max",
+        "delivery_max_age",
+        "delivery_timeout",
+        "delivery_claim",
+    )
     @classmethod
     def _duration(cls, value: str) -> str:
-        parse_duration(value)
+        if parse_duration(value).total_seconds() < 0:
+            raise ValueError("must not be negative")
+        return value
+
+    @field_validator("webhook_secret")
+    @classmethod
+    def _webhook_secret(cls, value: SecretStr | None) -> SecretStr | None:
+        # The message never repeats the value: settings errors are printed and logged.
+        if value is not None:
+            parts = value.get_secret_value().split()
+            if not parts:
+                return None
+            for i, part in enumerate(parts):
+                try:
+                    decode_webhook_secret(part)
+                except ValueError as exc:
+                    raise ValueError(f"secret number {i + 1}: {exc}") from None
         return value
 
     @classmethod
@@ -125,6 +225,18 @@ class Settings(BaseSettings):
     def future_tolerance_micros(self) -> int:
         return int(parse_duration(self.future_tolerance).total_seconds() * 1_000_000)
 
+    def seconds(self, name: str) -> float:
+        """A duration setting (e.g. ``delivery_timeout``) in seconds."""
+        return parse_duration(getattr(self, name)).total_seconds()
+
+    @property
+    def link_base(self) -> str:
+        """Where people reach this server: ``public_url``, else http://host:port."""
+        return (self.public_url or f"http://{self.host}:{self.port}").rstrip("/")
+
+    def webhook_secrets(self) -> list[str]:
+        return self.webhook_secret.get_secret_value().split() if self.webhook_secret else []
+
 
 def load_settings(**overrides: Any) -> Settings:
     """Build the settings, turning validation problems into one readable ConfigError."""
@@ -136,4 +248,5 @@ def load_settings(**overrides: Any) -> Settings:
         problems = "; ".join(
             f"{'.'.join(str(p) for p in err['loc'])}: {err['msg']}" for err in exc.errors()
         )
-        raise ConfigError(f"invalid settings: {problems}") from exc
+        # from None: a chained pydantic error would print the rejected input (a secret).
+        raise ConfigError(f"invalid settings: {problems}") from None

@@ -10,8 +10,16 @@ import re
 from datetime import datetime
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    field_serializer,
+    field_validator,
+    model_validator,
+)
 
+from plumbwatch.rulespec import RuleSpec, check_rule_names
 from plumbwatch.timefmt import parse_duration, parse_instant
 
 NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,199}$"
@@ -51,8 +59,22 @@ class ModelDeclaration(BaseModel):
     crosses: list[list[str]] = Field(default_factory=list)
     windows: list[str] = Field(default_factory=lambda: list(DEFAULT_WINDOWS))
     baseline: Baseline | None = None
-    rules: list[dict[str, Any]] | None = None
+    rules: list[RuleSpec] | None = Field(
+        None, description="alert rules (null: the default rules; [] none); see README"
+    )
     description: str = Field("", max_length=2000)
+
+    @field_validator("rules")
+    @classmethod
+    def _rules(cls, value: list[RuleSpec] | None) -> list[RuleSpec] | None:
+        if value is not None:
+            check_rule_names(value)
+        return value
+
+    @field_serializer("rules")
+    def _dump_rules(self, value: list[RuleSpec] | None) -> list[dict[str, Any]] | None:
+        # As declared: unset fields stay out (they take the current defaults).
+        return None if value is None else [r.model_dump(exclude_none=True) for r in value]
 
     @field_validator("label_horizon")
     @classmethod

@@ -32,6 +32,16 @@ from tests.factories import binary_model, make_token, outcome, prediction
 from tests.live import free_port
 
 MODEL = "fuzzed"
+ALERT_RULES = [
+    {
+        "name": "oe-high",
+        "condition": "metric",
+        "metric": "oe_ratio",
+        "above": 1.5,
+        "min_events": 0,
+        "raise_after": 1,
+    },
+]
 CHECKS = [
     checks.not_a_server_error,
     checks.response_schema_conformance,
@@ -68,7 +78,10 @@ def live_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Live]:
         # A declared model with a few rows, so forced paths reach real validation and
         # real duplicates, not only 404s.
         httpx.put(
-            f"{url}/v1/models/{MODEL}", json=binary_model(), headers=headers, timeout=10
+            f"{url}/v1/models/{MODEL}",
+            json=binary_model(rules=ALERT_RULES),
+            headers=headers,
+            timeout=10,
         ).raise_for_status()
         httpx.post(
             f"{url}/v1/models/{MODEL}/predictions",
@@ -77,6 +90,21 @@ def live_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Live]:
             timeout=10,
         ).raise_for_status()
         _evaluated(url, headers)
+        # Then outcomes that contradict the probabilities and an evaluation: real alerts, so
+        # the alert operations reach their real code, not only 404s.
+        httpx.post(
+            f"{url}/v1/models/{MODEL}/outcomes",
+            json={"outcomes": [outcome(i) for i in range(3)]},
+            headers=headers,
+            timeout=10,
+        ).raise_for_status()
+        evaluated = httpx.post(
+            f"{url}/v1/models/{MODEL}/evaluations",
+            json={"as_of": "2026-06-05T00:00:00Z"},
+            headers=headers,
+            timeout=60,
+        ).raise_for_status()
+        assert evaluated.json()["alerts"], "the fixture should have raised alerts"
         yield Live(url, headers)
     finally:
         server.should_exit = True
@@ -138,6 +166,8 @@ def test_api_contract(operation: schemathesis.APIOperation, live_app: Live) -> N
             and zlib.crc32(str(params["model"]).encode()) % 2 == 0
         ):
             params["model"] = MODEL
+        if params and "alert_id" in params and zlib.crc32(str(params["alert_id"]).encode()) % 2:
+            params["alert_id"] = 1  # an alert the fixture raised
         case.call_and_validate(
             base_url=live_app.url, headers=live_app.headers, checks=CHECKS, timeout=30
         )

@@ -12,6 +12,7 @@ from sqlalchemy.engine import Engine
 from plumbwatch import __version__
 from plumbwatch.api import errors
 from plumbwatch.api.routes import (
+    alerts,
     evaluations,
     evidence,
     health,
@@ -22,6 +23,7 @@ from plumbwatch.api.routes import (
 )
 from plumbwatch.config import Settings
 from plumbwatch.evaluate.run import Options
+from plumbwatch.jobs.alerting import Alerting
 from plumbwatch.jobs.schedule import start_scheduler
 from plumbwatch.jobs.tick import Evaluator, holder_name
 from plumbwatch.store.engine import create_engine
@@ -51,12 +53,15 @@ def create_app(
         require_current(engine)
         apply_declarations(engine, settings.models, now_us=clock_us())
         app.state.writer.start()
+        # Deliveries run whether or not the evaluation scheduler does.
+        app.state.alerting.start()
         scheduler = start_scheduler(app.state.evaluator, settings, clock_us)
         try:
             yield
         finally:
             if scheduler is not None:
                 scheduler.shutdown(wait=True)
+            app.state.alerting.stop()
             app.state.writer.stop()
 
     app = FastAPI(
@@ -69,13 +74,26 @@ def create_app(
     app.state.engine = engine
     app.state.clock_us = clock_us
     app.state.writer = GroupWriter(engine)
+    holder = holder_name()
+    app.state.alerting = Alerting(engine, settings, holder=holder, clock_us=clock_us)
     app.state.evaluator = Evaluator(
         engine,
-        holder_name(),
+        holder,
         Options.from_settings(settings),
         retention_days=settings.retention_days,
+        after_record=app.state.alerting.after_record,
+        after_commit=app.state.alerting.wake,
     )
     errors.install(app)
-    for module in (health, models, predictions, outcomes, evaluations, evidence, recalibration):
+    for module in (
+        health,
+        models,
+        predictions,
+        outcomes,
+        evaluations,
+        evidence,
+        recalibration,
+        alerts,
+    ):
         app.include_router(module.router)
     return app

@@ -8,6 +8,7 @@ for a mistake in input.
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -23,6 +24,16 @@ from plumbwatch.store.engine import create_engine
 from plumbwatch.store.migrate import current_revision, require_current, upgrade
 from plumbwatch.store.models import get_or_raise
 from plumbwatch.timefmt import format_instant, parse_duration, parse_instant, to_micros
+
+
+def _log_to_stderr() -> None:
+    """Our own log lines (deliveries, the log sink's alerts, scheduler ticks) on stderr,
+    beside uvicorn's, unless the embedding program set up logging itself."""
+    root = logging.getLogger()
+    if not root.handlers:
+        logging.basicConfig(
+            level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s: %(message)s"
+        )
 
 
 def _now_us() -> int:
@@ -61,6 +72,7 @@ def cmd_serve(settings: Settings, args: argparse.Namespace) -> int:
 
     host = args.host or settings.host
     port = args.port or settings.port
+    _log_to_stderr()
     with _engine(settings) as engine:
         require_current(engine)  # refuse early, with the command that fixes it
         app = create_app(settings, engine=engine)
@@ -135,16 +147,21 @@ def _token(engine: Engine, args: argparse.Namespace) -> int:
 
 def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
     from plumbwatch.evaluate.run import Options
+    from plumbwatch.jobs.alerting import Alerting
     from plumbwatch.jobs.tick import Evaluator, holder_name
 
     now_us = _now_us()
     as_of_us = to_micros(parse_instant(args.as_of)) if args.as_of else now_us
+    _log_to_stderr()
     with _engine(settings) as engine:
         require_current(engine)
+        holder = holder_name()
+        alerting = Alerting(engine, settings, holder=holder, clock_us=_now_us)
         evaluator = Evaluator(
             engine,
-            holder_name(),
+            holder,
             Options.from_settings(settings),
+            after_record=alerting.after_record,
         )
         if args.as_of:
             if not args.model:
@@ -155,12 +172,20 @@ def cmd_evaluate(settings: Settings, args: argparse.Namespace) -> int:
                 model, as_of_us=as_of_us, now_us=now_us, notify=not args.no_notify
             )
             print(f"{model.name}: {record['health']} as of {record['as_of']}")
-            return 0
-        results = evaluator.tick(now_us=now_us, model_name=args.model, notify=not args.no_notify)
+            results = {}
+        else:
+            results = evaluator.tick(
+                now_us=now_us, model_name=args.model, notify=not args.no_notify
+            )
+        # One sending pass, for set-ups where no server runs (cron); what fails here
+        # waits in the outbox for the next pass of a server or of this command.
+        sent = alerting.run_pass()
     for name, outcome in results.items():
         print(f"{name}: {outcome}")
-    if not results:
+    if not results and not args.as_of:
         print("no active models")
+    if sent:
+        print(f"{sent} alert deliveries attempted")
     return 0
 
 

@@ -37,15 +37,19 @@ def grouped(
 def slice_metrics(
     sketch: MulticlassSketch, classes: list[str]
 ) -> tuple[dict[str, Any], dict[str, str]]:
-    """``n``, ``events_by_class``, ``log_loss``, ``brier`` (summed over classes, range
-    [0, 2]), ``ece_top_label``, ``ece_classwise`` (15 equal-width bins), and each
-    binary metric per class as ``class:<name>:<metric>`` (one-vs-rest)."""
+    """``n``, ``events_by_class``, ``top_label_correct`` (rows whose top class was the
+    outcome), ``log_loss``, ``brier`` (summed over classes, range [0, 2]),
+    ``ece_top_label``, ``ece_classwise`` (15 equal-width bins), and each binary metric
+    per class as ``class:<name>:<metric>`` (one-vs-rest)."""
     values, reasons = multiclass_metrics(sketch, n_bins=15)
     metrics: dict[str, Any] = dict(values)
     metrics["n"] = round(sketch.n)
     metrics["events_by_class"] = {
         c: round(e) for c, e in zip(classes, sketch.events_by_class, strict=True)
     }
+    # Correct and incorrect top-label rows play the part of events and non-events
+    # when a rule asks for a minimum (see verdict_counts).
+    metrics["top_label_correct"] = verdict_counts(sketch)[0]
     for name, per in zip(classes, sketch.per_class, strict=True):
         per_values, per_reasons = binary_metrics(per)
         for metric, value in per_values.items():

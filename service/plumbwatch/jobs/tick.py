@@ -11,6 +11,7 @@ import logging
 import os
 import socket
 import uuid
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -43,6 +44,8 @@ class Evaluator:
     retention_days: int | None = None
     # Runs inside each evaluation's write transaction (the alerts layer plugs in here).
     after_record: AfterRecord | None = None
+    # Runs after each evaluation committed (wakes the delivery sender).
+    after_commit: Callable[[], None] | None = None
 
     def evaluate(
         self, model: MonitoredModel, *, as_of_us: int, now_us: int, notify: bool = True
@@ -78,7 +81,7 @@ class Evaluator:
                     last = store_evaluations.latest_as_of(conn, model_id=model.id)
                 if last is not None and last >= unless_done_since:
                     return None
-            return evaluate_model(
+            record = evaluate_model(
                 self.engine,
                 model,
                 as_of_us=as_of_us,
@@ -87,6 +90,9 @@ class Evaluator:
                 notify=notify,
                 after_record=self.after_record,
             )
+            if self.after_commit is not None:
+                self.after_commit()
+            return record
         finally:
             with self.engine.begin() as conn:
                 store_evaluations.release_lease(conn, name=name, holder=self.holder)

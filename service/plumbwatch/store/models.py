@@ -135,7 +135,7 @@ def upsert(
         "crosses": declaration.crosses,
         "windows": declaration.windows,
         "baseline": declaration.baseline.model_dump() if declaration.baseline else None,
-        "rules": declaration.rules,
+        "rules": declaration.model_dump(mode="json")["rules"],
         "description": declaration.description,
         "updated_at_us": now_us,
         "archived_at_us": None,

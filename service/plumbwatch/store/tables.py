@@ -243,3 +243,90 @@ leases = sa.Table(
 )
 
 sa.Index("ix_outcomes_prediction_id", outcomes.c.prediction_id)
+
+# -- alerts: lifecycle, its events, hysteresis counters and the outbox -----------------
+
+# One row per alert. While it is open (not cleared) `open_key` is "<model>/<rule>/<slice>";
+# the unique index on it keeps one open alert per (model, rule, slice) on both engines
+# (NULLs do not collide), so a re-raise needs the previous alert cleared first.
+alerts = sa.Table(
+    "alerts",
+    metadata,
+    sa.Column("id", RowId, primary_key=True),
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), nullable=False),
+    sa.Column("rule", sa.String(100), nullable=False),
+    sa.Column("slice", sa.String(600), nullable=False),
+    sa.Column("version", sa.String(64), nullable=True),
+    sa.Column("window_name", sa.String(32), nullable=True),
+    sa.Column("severity", sa.String(16), nullable=False),
+    sa.Column("state", sa.String(16), nullable=False),
+    sa.Column("open_key", sa.String(800), nullable=True, unique=True),
+    sa.Column("raised_at_us", sa.BigInteger, nullable=False),
+    sa.Column("since_us", sa.BigInteger, nullable=False),  # when the current state began
+    sa.Column("acknowledged_by", sa.String(200), nullable=True),  # a token name
+    sa.Column("shelved_until_us", sa.BigInteger, nullable=True),
+    sa.Column("cleared_at_us", sa.BigInteger, nullable=True),
+    sa.Column("detail", sa.Text, nullable=False),  # JSON: the values that tripped the rule
+    sa.Column("sinks", sa.JSON, nullable=False),  # where its events go (resolved at raise)
+    sa.Column("link", sa.String(1000), nullable=False),  # the model's status page
+    sa.CheckConstraint("state IN ('active', 'acknowledged', 'shelved', 'cleared')", name="state"),
+    sa.Index(None, "model_id", "state"),
+    sa.Index(None, "state"),
+)
+
+# Every transition of an alert, tied to the evaluation that caused it or to the token
+# that took it. `event_id` is the stable id receivers deduplicate on (webhook-id);
+# `payload` is the notification body, stored before anything is sent.
+alert_events = sa.Table(
+    "alert_events",
+    metadata,
+    sa.Column("id", RowId, primary_key=True),
+    sa.Column("alert_id", RowId, sa.ForeignKey("alerts.id"), nullable=False, index=True),
+    sa.Column("event_id", sa.String(64), nullable=False, unique=True),
+    sa.Column("kind", sa.String(16), nullable=False),
+    sa.Column("from_state", sa.String(16), nullable=True),
+    sa.Column("to_state", sa.String(16), nullable=False),
+    sa.Column("evaluation_id", RowId, sa.ForeignKey("evaluations.id"), nullable=True),
+    sa.Column("actor", sa.String(200), nullable=True),
+    sa.Column("at_us", sa.BigInteger, nullable=False),
+    sa.Column("payload", sa.Text, nullable=False),
+)
+
+# Hysteresis counters per (model, rule, slice): consecutive evaluations the condition
+# held (`hold`) or did not (`calm`). Kept while either matters; dropped when idle.
+alert_tracks = sa.Table(
+    "alert_tracks",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("rule", sa.String(100), primary_key=True),
+    sa.Column("slice", sa.String(600), primary_key=True),
+    sa.Column("hold", sa.Integer, nullable=False),
+    sa.Column("calm", sa.Integer, nullable=False),
+    sa.Column("holding", sa.Boolean, nullable=False),  # the last evaluation's verdict
+    sa.Column("evaluation_id", RowId, sa.ForeignKey("evaluations.id"), nullable=True),
+    sa.Column("as_of_us", sa.BigInteger, nullable=False),
+)
+
+# The outbox: one row per (event, sink), written in the transaction that records the
+# event; a sender claims due rows (claimed_by/claimed_until), sends, and records the
+# outcome, so a crash at any point re-sends rather than loses.
+deliveries = sa.Table(
+    "deliveries",
+    metadata,
+    sa.Column("id", RowId, primary_key=True),
+    sa.Column("alert_event_id", RowId, sa.ForeignKey("alert_events.id"), nullable=False),
+    sa.Column("sink", sa.String(100), nullable=False),
+    sa.Column("state", sa.String(16), nullable=False),
+    sa.Column("attempts", sa.Integer, nullable=False),
+    sa.Column("next_attempt_us", sa.BigInteger, nullable=False),
+    sa.Column("created_at_us", sa.BigInteger, nullable=False),
+    sa.Column("first_attempt_us", sa.BigInteger, nullable=True),  # the sender's clock
+    sa.Column("last_attempt_us", sa.BigInteger, nullable=True),
+    sa.Column("finished_at_us", sa.BigInteger, nullable=True),  # delivered or failed
+    sa.Column("last_error", sa.String(1000), nullable=True),
+    sa.Column("claimed_by", sa.String(200), nullable=True),
+    sa.Column("claimed_until_us", sa.BigInteger, nullable=True),
+    sa.UniqueConstraint("alert_event_id", "sink"),
+    sa.CheckConstraint("state IN ('pending', 'delivered', 'failed')", name="state"),
+    sa.Index(None, "state", "next_attempt_us"),
+)

@@ -7,6 +7,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Query, Request
 from starlette.concurrency import run_in_threadpool
 
+from plumbwatch.alerts import status as alert_status
 from plumbwatch.api.deps import EngineDep, PrincipalDep, SettingsDep, read_json
 from plumbwatch.api.responses import JsonResponse
 from plumbwatch.api.schemas import EvaluationCreate, body, errors, inline_schema
@@ -33,16 +34,18 @@ def _instant(name: str, value: str | None) -> int | None:
 
 @router.get("/{model}/status", responses=errors(401, 403, 404))
 def get_status(model: str, engine: EngineDep, principal: PrincipalDep) -> JsonResponse:
-    """The latest evaluation record of the model."""
+    """The latest evaluation record of the model, with its alerts as they are now."""
     principal.require("read", model)
     with engine.connect() as conn:
         found = store_models.get_or_raise(conn=conn, name=model, include_archived=True)
         record = store_evaluations.latest(conn, model_id=found.id)
-    if record is None:
-        raise NotFound(
-            f"model {model!r} has not been evaluated yet; POST "
-            f"/v1/models/{model}/evaluations or wait for the scheduler"
-        )
+        if record is None:
+            raise NotFound(
+                f"model {model!r} has not been evaluated yet; POST "
+                f"/v1/models/{model}/evaluations or wait for the scheduler"
+            )
+        # Alerts and deliveries as they are now (acknowledged since, failed since).
+        record = alert_status.overlay(conn, model_id=found.id, record=record)
     return JsonResponse(record)
 
 
