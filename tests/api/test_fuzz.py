@@ -89,8 +89,7 @@ def live_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Live]:
             headers=headers,
             timeout=10,
         ).raise_for_status()
-        _evaluated(url, headers)
-        # Then outcomes that contradict the probabilities and an evaluation: real alerts, so
+        # Outcomes that contradict the probabilities and an evaluation: real alerts, so
         # the alert operations reach their real code, not only 404s.
         httpx.post(
             f"{url}/v1/models/{MODEL}/outcomes",
@@ -105,6 +104,8 @@ def live_app(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Live]:
             timeout=60,
         ).raise_for_status()
         assert evaluated.json()["alerts"], "the fixture should have raised alerts"
+        # Then matured, labelled rows and a later evaluation for the read endpoints.
+        _evaluated(url, headers)
         yield Live(url, headers)
     finally:
         server.should_exit = True
