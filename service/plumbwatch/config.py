@@ -73,6 +73,17 @@ class Settings(BaseSettings):
     min_events: int = Field(
         100, ge=1, description="events and non-events a slice needs for a verdict"
     )
+    public_pages: bool = Field(
+        False, description="pages and /metrics readable without a token (closed networks)"
+    )
+    session_key: str | None = Field(
+        None,
+        min_length=16,
+        description="signs browser sessions; set it when several servers share a database",
+    )
+    metrics_slice_cap: int = Field(
+        25, ge=1, description="slice entries per model and window exported on /metrics"
+    )
     models: dict[str, dict[str, Any]] = Field(
         default_factory=dict, description="model declarations from the TOML file"
     )

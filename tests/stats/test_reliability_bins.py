@@ -75,3 +75,16 @@ def test_quantile_is_an_upper_grid_edge() -> None:
     p = np.linspace(0.001, 0.02, 200)
     q = forecast_quantile_from_sketch(Sketch.from_arrays(np.zeros(200), p), 0.995)
     assert 0.02 <= q < 0.0205
+
+
+def test_zoomed_bins_place_grid_bins_by_their_mean_forecast() -> None:
+    rng = np.random.default_rng(3)
+    p = rng.uniform(0.0, 0.08, size=3000)
+    y = (rng.random(p.size) < p).astype(float)
+    bins = binned_reliability_from_sketch(Sketch.from_arrays(y, p), n_bins=8, upper=0.08)
+    assert bins.count.sum() == p.size
+    assert bins.high[-1] == pytest.approx(0.08)
+    # Against numpy's histogram of the raw rows: only rows next to an edge may move.
+    ref, _ = np.histogram(p, bins=np.linspace(0, 0.08, 9))
+    near_edge = np.min(np.abs(p[:, None] - np.linspace(0, 0.08, 9)[None, 1:-1]), axis=1) < 1e-3
+    assert np.abs(bins.count - ref).sum() <= 2 * near_edge.sum()

@@ -2,16 +2,30 @@
 
 from __future__ import annotations
 
+import secrets
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 from datetime import UTC, datetime
 
 from fastapi import FastAPI
 from sqlalchemy.engine import Engine
+from starlette.staticfiles import StaticFiles
 
 from plumbwatch import __version__
 from plumbwatch.api import errors
-from plumbwatch.api.routes import evaluations, health, models, outcomes, predictions
+from plumbwatch.api.page_auth import Sessions
+from plumbwatch.api.page_data import Gatherer
+from plumbwatch.api.routes import (
+    evaluations,
+    health,
+    models,
+    openmetrics,
+    outcomes,
+    pages,
+    predictions,
+    sign_in,
+)
+from plumbwatch.api.telemetry import IngestCounter, Telemetry
 from plumbwatch.config import Settings
 from plumbwatch.evaluate.run import Options
 from plumbwatch.jobs.schedule import start_scheduler
@@ -61,13 +75,23 @@ def create_app(
     app.state.engine = engine
     app.state.clock_us = clock_us
     app.state.writer = GroupWriter(engine)
+    app.state.telemetry = Telemetry()
+    app.state.gatherer = Gatherer()
+    # Without a configured key, sessions last as long as this process (page_auth.py).
+    key = settings.session_key.encode() if settings.session_key else secrets.token_bytes(32)
+    app.state.sessions = Sessions(key)
     app.state.evaluator = Evaluator(
         engine,
         holder_name(),
         Options(slice_cap=settings.slice_cap, min_events=settings.min_events),
         retention_days=settings.retention_days,
+        on_duration=app.state.telemetry.evaluated,
     )
     errors.install(app)
     for module in (health, models, predictions, outcomes, evaluations):
         app.include_router(module.router)
+    for module in (pages, sign_in, openmetrics):
+        app.include_router(module.router)
+    app.mount("/static", StaticFiles(packages=[("plumbwatch.web", "static")]), name="static")
+    app.add_middleware(IngestCounter, telemetry=app.state.telemetry)
     return app

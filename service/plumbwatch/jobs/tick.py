@@ -10,7 +10,9 @@ from __future__ import annotations
 import logging
 import os
 import socket
+import time
 import uuid
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -42,6 +44,8 @@ class Evaluator:
     retention_days: int | None = None
     # Runs inside each evaluation's write transaction (the alerts layer plugs in here).
     after_record: AfterRecord | None = None
+    # Told (model, seconds) after each completed run (the /metrics duration histogram).
+    on_duration: Callable[[MonitoredModel, float], None] | None = None
 
     def evaluate(
         self, model: MonitoredModel, *, as_of_us: int, now_us: int, notify: bool = True
@@ -77,7 +81,8 @@ class Evaluator:
                     last = store_evaluations.latest_as_of(conn, model_id=model.id)
                 if last is not None and last >= unless_done_since:
                     return None
-            return evaluate_model(
+            started = time.perf_counter()
+            record = evaluate_model(
                 self.engine,
                 model,
                 as_of_us=as_of_us,
@@ -86,6 +91,9 @@ class Evaluator:
                 notify=notify,
                 after_record=self.after_record,
             )
+            if self.on_duration is not None:
+                self.on_duration(model, time.perf_counter() - started)
+            return record
         finally:
             with self.engine.begin() as conn:
                 store_evaluations.release_lease(conn, name=name, holder=self.holder)

@@ -64,19 +64,42 @@ class BinnedReliability:
     level: float
 
 
+def _by_mean_forecast(sketch: Sketch, n_bins: int, upper: float) -> tuple[FloatArray, ...]:
+    """Grid bins grouped by the equal-width bin of ``[0, upper]`` holding their mean
+    forecast (the rest in the last bin): off by at most the rows of one grid bin
+    (about 0.005 wide at most) at each edge."""
+    keep = sketch.count > 0
+    mean_p = sketch.sum_p[keep] / sketch.count[keep]
+    index = np.minimum(np.floor(mean_p / upper * n_bins), n_bins - 1).astype(np.intp)
+    return tuple(
+        np.bincount(index, weights=getattr(sketch, name)[keep], minlength=n_bins).astype(np.float64)
+        for name in ("count", "sum_y", "sum_p")
+    )
+
+
 def binned_reliability_from_sketch(
-    sketch: Sketch, *, n_bins: int = 10, level: float = 0.95
+    sketch: Sketch, *, n_bins: int = 10, level: float = 0.95, upper: float = 1.0
 ) -> BinnedReliability:
-    """Equal-width bins (rule ``min(floor(p*B), B-1)``, B in 10 or 15: exact on the grid)."""
+    """Equal-width bins of ``[0, upper]``.
+
+    With ``upper = 1`` and 10 or 15 bins (rule ``min(floor(p*B), B-1)``) the bins
+    are exact on the grid and are those of the reported ECE; otherwise (a zoomed
+    diagram for rare events) grid bins are placed by their mean forecast.
+    """
     n_bins = check_positive_int(n_bins, "n_bins")
     level = check_level(level)
-    sums = sketch.coarse_sums(n_bins)
-    count, sum_y, sum_p = sums["count"], sums["sum_y"], sums["sum_p"]
+    if not 0.0 < upper <= 1.0:
+        raise ValueError(f"upper: expected a value in (0, 1], got {upper!r}")
+    if upper == 1.0 and n_bins in grid.EQUAL_WIDTH_BINS:
+        sums = sketch.coarse_sums(n_bins)
+        count, sum_y, sum_p = sums["count"], sums["sum_y"], sums["sum_p"]
+    else:
+        count, sum_y, sum_p = _by_mean_forecast(sketch, n_bins, upper)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_p = np.where(count > 0, sum_p / count, np.nan)
         rate = np.where(count > 0, sum_y / count, np.nan)
     ci_low, ci_high = wilson_interval(sum_y, count, level=level)
-    edges = np.arange(n_bins + 1) / n_bins
+    edges = np.arange(n_bins + 1) / n_bins * upper
     return BinnedReliability(
         edges[:-1], edges[1:], count, sum_y, mean_p, rate, ci_low, ci_high, level
     )
@@ -94,10 +117,7 @@ def forecast_histogram_from_sketch(
     n_bins = check_positive_int(n_bins, "n_bins")
     if not 0.0 < upper <= 1.0:
         raise ValueError(f"upper: expected a value in (0, 1], got {upper!r}")
-    keep = sketch.count > 0
-    mean_p = sketch.sum_p[keep] / sketch.count[keep]
-    index = np.minimum(np.floor(mean_p / upper * n_bins), n_bins - 1).astype(np.intp)
-    counts = np.bincount(index, weights=sketch.count[keep], minlength=n_bins).astype(np.float64)
+    counts = _by_mean_forecast(sketch, n_bins, upper)[0]
     return np.linspace(0.0, upper, n_bins + 1), counts
 
 
