@@ -47,8 +47,14 @@ def _post(svc: Service, model: str, kind: str, rows: list[dict[str, Any]]) -> No
 
 
 def _binary(
-    svc: Service, model: str, *, per_day: int, segments: dict[str, tuple[str, ...]], seed: int,
-    drift_key: tuple[str, str] | None = None, label_rate: float = 0.9,
+    svc: Service,
+    model: str,
+    *,
+    per_day: int,
+    segments: dict[str, tuple[str, ...]],
+    seed: int,
+    drift_key: tuple[str, str] | None = None,
+    label_rate: float = 0.9,
 ) -> None:
     rng = np.random.default_rng(seed)
     preds, outs = [], []
@@ -113,22 +119,62 @@ def _multiclass(svc: Service, model: str, seed: int) -> None:
 
 
 def hand_built_alerts() -> list[dict[str, Any]]:
-    base = {"version": None, "window": "P7D", "acknowledged_by": None, "shelved_until": None,
-            "cleared_at": None, "values": {"ece": 0.061, "log_evidence": 9.8}}
+    base = {
+        "version": None,
+        "window": "P7D",
+        "acknowledged_by": None,
+        "shelved_until": None,
+        "cleared_at": None,
+        "values": {"ece": 0.061, "log_evidence": 9.8},
+    }
     return [
-        {**base, "id": 1, "model": "late-delivery", "rule": "calibration", "slice": "region:north-coast",
-         "state": "active", "severity": "critical", "raised_at": "2026-05-24T00:00:00Z",
-         "since": "2026-05-23T00:00:00Z"},
-        {**base, "id": 2, "model": "late-delivery", "rule": "calibration",
-         "slice": "region:" + XSS_SCRIPT.replace(":", "%3A").replace(",", "%2C"),
-         "state": "acknowledged", "severity": "warning", "raised_at": "2026-05-20T00:00:00Z",
-         "since": "2026-05-20T00:00:00Z", "acknowledged_by": "t-admin"},
-        {**base, "id": 3, "model": "damage-claim", "rule": "score_drift", "slice": "overall",
-         "state": "shelved", "severity": "warning", "raised_at": "2026-05-18T00:00:00Z",
-         "since": "2026-05-18T00:00:00Z", "shelved_until": "2026-06-02T00:00:00Z"},
-        {**base, "id": 4, "model": "damage-claim", "rule": "calibration", "slice": "depot:west",
-         "state": "cleared", "severity": "critical", "raised_at": "2026-05-10T00:00:00Z",
-         "since": "2026-05-10T00:00:00Z", "cleared_at": "2026-05-16T00:00:00Z"},
+        {
+            **base,
+            "id": 1,
+            "model": "late-delivery",
+            "rule": "calibration",
+            "slice": "region:north-coast",
+            "state": "active",
+            "severity": "critical",
+            "raised_at": "2026-05-24T00:00:00Z",
+            "since": "2026-05-23T00:00:00Z",
+        },
+        {
+            **base,
+            "id": 2,
+            "model": "late-delivery",
+            "rule": "calibration",
+            "slice": "region:" + XSS_SCRIPT.replace(":", "%3A").replace(",", "%2C"),
+            "state": "acknowledged",
+            "severity": "warning",
+            "raised_at": "2026-05-20T00:00:00Z",
+            "since": "2026-05-20T00:00:00Z",
+            "acknowledged_by": "t-admin",
+        },
+        {
+            **base,
+            "id": 3,
+            "model": "damage-claim",
+            "rule": "score_drift",
+            "slice": "overall",
+            "state": "shelved",
+            "severity": "warning",
+            "raised_at": "2026-05-18T00:00:00Z",
+            "since": "2026-05-18T00:00:00Z",
+            "shelved_until": "2026-06-02T00:00:00Z",
+        },
+        {
+            **base,
+            "id": 4,
+            "model": "damage-claim",
+            "rule": "calibration",
+            "slice": "depot:west",
+            "state": "cleared",
+            "severity": "critical",
+            "raised_at": "2026-05-10T00:00:00Z",
+            "since": "2026-05-10T00:00:00Z",
+            "cleared_at": "2026-05-16T00:00:00Z",
+        },
     ]
 
 
@@ -137,7 +183,8 @@ def fake_list_alerts(seeded: Seeded):  # type: ignore[no-untyped-def]
 
     def list_alerts(conn, *, state=None, model_id=None, limit=100, after_id=None):  # type: ignore[no-untyped-def]
         out = [
-            a for a in seeded.alerts
+            a
+            for a in seeded.alerts
             if (state is None or a["state"] == state)
             and (model_id is None or a["model"] == names.get(model_id))
             and (after_id is None or a["id"] > after_id)
@@ -175,16 +222,30 @@ def seeded_service(engine: Engine, **settings: Any) -> Iterator[Seeded]:
         )
         svc.put_model(
             "route-outcome",
-            {"kind": "multiclass", "classes": ["on_time", "late", "lost"],
-             "label_horizon": "P3D", "segment_keys": ["region"], "windows": ["P7D"]},
+            {
+                "kind": "multiclass",
+                "classes": ["on_time", "late", "lost"],
+                "label_horizon": "P3D",
+                "segment_keys": ["region"],
+                "windows": ["P7D"],
+            },
         )
         _binary(
-            svc, "late-delivery", per_day=160, seed=1,
+            svc,
+            "late-delivery",
+            per_day=160,
+            seed=1,
             segments={"region": REGIONS, "tier": ("express", "standard")},
             drift_key=("region", "north-coast"),
         )
-        _binary(svc, "damage-claim", per_day=60, seed=2,
-                segments={"depot": ("east", "west", "south")}, label_rate=0.3)
+        _binary(
+            svc,
+            "damage-claim",
+            per_day=60,
+            seed=2,
+            segments={"depot": ("east", "west", "south")},
+            label_rate=0.3,
+        )
         _multiclass(svc, "route-outcome", seed=3)
         for as_of in AS_OFS:
             for model in ("late-delivery", "damage-claim", "route-outcome"):
@@ -192,7 +253,9 @@ def seeded_service(engine: Engine, **settings: Any) -> Iterator[Seeded]:
                 assert r.status_code == 200, r.text
         with engine.connect() as conn:
             ids = {m.name: m.id for m in store_models.list_models(conn=conn)}
-        seeded = Seeded(svc, ids, hand_built_alerts())
-        with pytest.MonkeyPatch.context() as mp:
-            mp.setattr(alerts_source, "list_alerts", fake_list_alerts(seeded))
-            yield seeded
+        yield Seeded(svc, ids, hand_built_alerts())
+
+
+def patch_alerts(monkeypatch: pytest.MonkeyPatch, seeded: Seeded) -> None:
+    """Serve the hand-built alerts through the pages' alert seam."""
+    monkeypatch.setattr(alerts_source, "list_alerts", fake_list_alerts(seeded))
