@@ -18,9 +18,10 @@ PANEL = "#f4f6f8"
 BAND = "#c7d3e3"  # the consistency band and interval shading
 DIAGONAL = "#8a939e"
 
-# Series colours in the order charts use them; each pair stays distinct for
-# protan, deutan and tritan readers (blue against orange is the backbone).
-SERIES = ("#1f5b99", "#b25400", "#5b3f8c", "#2d7a5f")
+# Series colours in the order charts use them: every pair stays apart for protan,
+# deutan and tritan readers (blue against orange is the backbone, then a near-black
+# and a light blue apart in lightness), each at least 3:1 against white.
+SERIES = ("#1f5b99", "#b25400", "#1a1a1a", "#3399ee")
 # Line styles and markers that go with the series, so that print and
 # colour-blind readers can still tell them apart.
 DASHES = ("", "6 3", "2 3", "8 3 2 3")
@@ -31,18 +32,21 @@ MARKERS = ("circle", "square", "triangle", "diamond")
 class HealthStyle:
     label: str  # the words shown
     symbol: str  # shown beside the words, never alone
-    colour: str  # text and border colour (contrast >= 4.5:1 on white)
+    colour: str  # text colour on the badge (contrast >= 4.5:1 on its tint)
     tint: str  # background of the badge
+    border: str  # outline of the badge
 
 
+# The alarm state is a solid badge, the others tinted: they differ in fill as well as
+# in hue, which holds under every colour-vision deficiency and in greyscale print.
 HEALTH = {
-    "drifting": HealthStyle("drifting", "▲", "#a63a00", "#fde9dc"),
-    "watch": HealthStyle("watch", "◆", "#7a5a00", "#fbf2d3"),
-    "ok": HealthStyle("ok", "✓", "#1f5b99", "#e2ecf7"),
-    "insufficient_data": HealthStyle("insufficient data", "–", "#545e6b", "#eceef1"),
-    "awaiting_labels": HealthStyle("awaiting labels", "…", "#545e6b", "#eceef1"),
+    "drifting": HealthStyle("drifting", "▲", "#ffffff", "#a63a00", "#a63a00"),
+    "watch": HealthStyle("watch", "◆", "#6b4e00", "#fbf2d3", "#8a6a00"),
+    "ok": HealthStyle("ok", "✓", "#1f5b99", "#e2ecf7", "#1f5b99"),
+    "insufficient_data": HealthStyle("insufficient data", "–", "#545e6b", "#eceef1", "#8a939e"),
+    "awaiting_labels": HealthStyle("awaiting labels", "…", "#545e6b", "#eceef1", "#8a939e"),
 }
-UNKNOWN = HealthStyle("unknown", "?", "#545e6b", "#eceef1")
+UNKNOWN = HealthStyle("unknown", "?", "#545e6b", "#eceef1", "#8a939e")
 
 # Worst first, as the evaluation ranks them (plumbwatch.evaluate.metrics.HEALTH_ORDER).
 HEALTH_ORDER = ("drifting", "watch", "ok", "insufficient_data", "awaiting_labels")
@@ -57,12 +61,14 @@ def health_rank(state: str | None) -> int:
     return HEALTH_ORDER.index(state) if state in HEALTH_ORDER else len(HEALTH_ORDER)
 
 
+# Severity is shown as coloured text with a symbol (on white).
 SEVERITY = {
-    "critical": HealthStyle("critical", "▲", "#a63a00", "#fde9dc"),
-    "warning": HealthStyle("warning", "◆", "#7a5a00", "#fbf2d3"),
-    "info": HealthStyle("info", "●", "#1f5b99", "#e2ecf7"),
+    "critical": HealthStyle("critical", "▲", "#a63a00", "#ffffff", "#a63a00"),
+    "warning": HealthStyle("warning", "◆", "#6b4e00", "#ffffff", "#6b4e00"),
+    "info": HealthStyle("info", "●", "#1f5b99", "#ffffff", "#1f5b99"),
 }
 
 
 def severity_style(severity: str | None) -> HealthStyle:
-    return SEVERITY.get(severity or "", HealthStyle(severity or "unknown", "●", MUTED, PANEL))
+    fallback = HealthStyle(severity or "unknown", "●", MUTED, "#ffffff", MUTED)
+    return SEVERITY.get(severity or "", fallback)

@@ -139,7 +139,7 @@ def key_metric_cells(
     return out
 
 
-def attention(record: Mapping[str, Any] | None, limit: int = 3) -> list[dict[str, Any]]:
+def attention(record: Mapping[str, Any] | None, limit: int = 3) -> dict[str, Any]:
     """The worst slices of the first window (drifting, then watch), most evidence first."""
     w = first_window(record)
     flagged = [s for s in w.get("slices") or [] if s.get("health") in ("drifting", "watch")]
@@ -150,15 +150,17 @@ def attention(record: Mapping[str, Any] | None, limit: int = 3) -> list[dict[str
             s.get("slice") or "",
         )
     )
-    return [
+    items = [
         {
             "slice": s.get("slice"),
+            "url": model_url(str((record or {}).get("model") or ""), slice=str(s.get("slice"))),
             "label": fmt.slice_label(s.get("slice")),
             "version": s.get("version"),
             "health": health_view(s.get("health")),
         }
         for s in flagged[:limit]
-    ] + ([{"more": len(flagged) - limit}] if len(flagged) > limit else [])
+    ]
+    return {"items": items, "more": max(len(flagged) - limit, 0)}
 
 
 def overview(models: Sequence[Mapping[str, Any]], *, now: datetime) -> dict[str, Any]:
