@@ -79,7 +79,9 @@ def test_pages_in_a_real_browser(pages: Seeded, live: str, artifacts: Path) -> N
             page.on("pageerror", lambda exc: problems.append(f"page error: {exc}"))
             page.on(
                 "console",
-                lambda msg: problems.append(f"console: {msg.text}") if msg.type == "error" else None,
+                lambda msg: (
+                    problems.append(f"console: {msg.text}") if msg.type == "error" else None
+                ),
             )
 
             # Sign in: the browser is sent to the form and back where it wanted to go.

@@ -79,6 +79,9 @@ class TrendPoint:
         return {f: _plain(v) for f, v in zip(TREND_FIELDS, self.values[row], strict=True)}
 
 
+_INDEXES = PageCache(max_items=256)  # equal slice lists share one index
+
+
 def trend_point(record: dict[str, Any]) -> TrendPoint:
     index: dict[tuple[str, str], int] = {}
     rows: list[list[float]] = []
@@ -96,12 +99,20 @@ def trend_point(record: dict[str, Any]) -> TrendPoint:
                 ]
             )
     values = np.array(rows, dtype=np.float64).reshape(len(rows), len(TREND_FIELDS))
-    return TrendPoint(str(record.get("as_of")), index, values)
+    keys = tuple(index)
+    shared = _INDEXES.get_or_compute(keys, lambda: index)
+    return TrendPoint(str(record.get("as_of")), shared, values)
 
 
 class Gatherer:
-    def __init__(self, cache: PageCache | None = None) -> None:
-        self.cache = cache or PageCache()
+    """Reads for the pages, with three caches sized for what they hold: parsed latest
+    records (large), trend points of past runs (small, many), and per-slice figures
+    and charts (large, few)."""
+
+    def __init__(self) -> None:
+        self.records = PageCache(max_items=64)
+        self.trends = PageCache(max_items=4000)
+        self.cache = PageCache(max_items=64)
 
     # -- records -------------------------------------------------------------------
 
@@ -112,9 +123,7 @@ class Gatherer:
         if found is None:
             return None
         eid = found[0]
-        record = self.cache.get_or_compute(
-            ("record", eid), lambda: history.records_by_id(conn, [eid])[eid]
-        )
+        record = self.records.get_or_compute(eid, lambda: history.records_by_id(conn, [eid])[eid])
         return eid, record
 
     def trend(
@@ -128,7 +137,7 @@ class Gatherer:
         points: dict[int, TrendPoint] = {}
         missing = []
         for eid, _ in ids:
-            found = self.cache.get(("trend", eid))
+            found = self.trends.get(eid)
             if found is None:
                 missing.append(eid)
             else:
@@ -136,7 +145,7 @@ class Gatherer:
         for start in range(0, len(missing), 50):
             for eid, record in history.records_by_id(conn, missing[start : start + 50]).items():
                 points[eid] = trend_point(record)
-                self.cache.put(("trend", eid), points[eid])
+                self.trends.put(eid, points[eid])
         return [points[eid] for eid, _ in ids if eid in points]
 
     # -- baseline ------------------------------------------------------------------

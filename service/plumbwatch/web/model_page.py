@@ -271,15 +271,46 @@ def coverage_rows(
     return rows
 
 
+def _selection(data: Mapping[str, Any]) -> tuple[dict[str, Any], list[str], str | None, str]:
+    record = data.get("record") or {}
+    windows = [w.get("window") for w in record.get("windows") or [] if w.get("window")]
+    chosen = data.get("window")
+    selected = chosen if chosen in windows else (windows[0] if windows else None)
+    return record, windows, selected, data.get("slice") or "overall"
+
+
+def charts(data: Mapping[str, Any]) -> dict[str, Any]:
+    """Every chart of the page. They depend only on the evaluation and the slice, so
+    the caller may keep them for later views of the same pair."""
+    name = data["model"]["name"]
+    record, windows, _, slice_name = _selection(data)
+    return {
+        "reliability": [
+            reliability_chart(
+                (data.get("reliability") or {}).get(w), model=name, window=w, slice_name=slice_name
+            )
+            for w in windows
+        ],
+        "trends": trend_charts(
+            data.get("history") or [], windows, model=name, slice_name=slice_name
+        ),
+        "distribution": distribution_chart(
+            data.get("distribution"), model=name, slice_name=slice_name
+        ),
+        "coverage": coverage_chart(
+            coverage_rows(data.get("coverage") or [], record, slice_name),
+            model=name,
+            horizon=str(data["model"].get("label_horizon") or ""),
+        ),
+        "advice_chart": recalibration_chart(record.get("recalibration"), model=name),
+    }
+
+
 def model_page(data: Mapping[str, Any], *, now: datetime) -> dict[str, Any]:
     model = data["model"]
     name = model["name"]
-    record = data.get("record") or {}
-    windows = [w.get("window") for w in record.get("windows") or [] if w.get("window")]
-    selected_window = (
-        data.get("window") if data.get("window") in windows else (windows[0] if windows else None)
-    )
-    slice_name = data.get("slice") or "overall"
+    record, windows, selected_window, slice_name = _selection(data)
+    drawn = data.get("charts") or charts(data)
     window = first_window(record, selected_window)
     baseline = data.get("baseline") or {}
     cards = []
@@ -305,12 +336,6 @@ def model_page(data: Mapping[str, Any], *, now: datetime) -> dict[str, Any]:
     sort_key = data.get("sort") or "health"
     descending = data.get("dir") == "desc"
     rows = sort_rows(rows, sort_key, descending)
-    reliability = [
-        reliability_chart(
-            (data.get("reliability") or {}).get(w), model=name, window=w, slice_name=slice_name
-        )
-        for w in windows
-    ]
     headers = []
     for key, heading, hint in COLUMNS:
         active = key == sort_key
@@ -368,23 +393,15 @@ def model_page(data: Mapping[str, Any], *, now: datetime) -> dict[str, Any]:
         }
         if baseline.get("metrics")
         else None,
-        "reliability": reliability,
-        "trends": trend_charts(
-            data.get("history") or [], windows, model=name, slice_name=slice_name
-        ),
+        "reliability": drawn["reliability"],
+        "trends": drawn["trends"],
         "history_points": len(data.get("history") or []),
         "headers": headers,
         "rows": rows,
-        "distribution": distribution_chart(
-            data.get("distribution"), model=name, slice_name=slice_name
-        ),
-        "coverage": coverage_chart(
-            coverage_rows(data.get("coverage") or [], record, slice_name),
-            model=name,
-            horizon=str(model.get("label_horizon") or ""),
-        ),
+        "distribution": drawn["distribution"],
+        "coverage": drawn["coverage"],
         "advice": advice_view(record.get("recalibration")),
-        "advice_chart": recalibration_chart(record.get("recalibration"), model=name),
+        "advice_chart": drawn["advice_chart"],
         "immature": immature_rows(record),
         "alert_groups": alert_groups(data.get("alerts") or [], now=now),
         "capped_keys": list(cap.get("capped_keys") or []),

@@ -11,6 +11,7 @@ from plumbwatch.api import alerts_source
 from plumbwatch.api.auth import Principal
 from plumbwatch.api.openmetrics import Snapshot, families
 from plumbwatch.api.page_auth import page_user
+from plumbwatch.api.schemas import errors
 from plumbwatch.errors import AuthError
 from plumbwatch.store import models as store_models
 
@@ -20,7 +21,7 @@ router = APIRouter(tags=["metrics"])
 @router.get(
     "/metrics",
     response_class=Response,
-    responses={200: {"content": {CONTENT_TYPE_LATEST: {}}}},
+    responses={200: {"content": {CONTENT_TYPE_LATEST: {}}}, **errors(401, 403)},
 )
 def metrics(request: Request) -> Response:
     """OpenMetrics text: per model, window and slice the key metrics, evidence and

@@ -28,7 +28,7 @@ from plumbwatch.store import models as store_models
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.timefmt import from_micros, parse_duration
 from plumbwatch.web import views
-from plumbwatch.web.model_page import model_page
+from plumbwatch.web.model_page import charts, model_page
 
 router = APIRouter(include_in_schema=False)
 
@@ -131,6 +131,10 @@ def model_detail(
                     distribution=_with_drift(figures["distribution"], record, slice),
                     coverage=figures["coverage"],
                     history=_history(trend, record, slice),
+                )
+                # Charts depend on the run and the slice only: drawn once per pair.
+                data["charts"] = gather.cache.get_or_compute(
+                    ("charts", eid, slice, tuple(p.as_of for p in trend)), lambda: charts(data)
                 )
     except PlumbwatchError as exc:
         return domain_error(user, exc)
