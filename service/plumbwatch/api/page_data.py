@@ -186,14 +186,28 @@ class Gatherer:
         *,
         model_id: int | None = None,
         states: Iterable[str] = ("active", "acknowledged", "shelved", "cleared"),
-        limit: int = 200,
+        recent_cleared: int = 50,
+        page: int = 500,
+        most: int = 10_000,
     ) -> list[dict[str, Any]]:
+        """Alerts by state, newest first; of the cleared ones only the most recent."""
         out: list[dict[str, Any]] = []
         for state in states:
-            found = alerts_source.list_alerts(conn, state=state, model_id=model_id, limit=limit)
-            out += sorted(
-                found, key=lambda a: str(a.get("since") or a.get("raised_at") or ""), reverse=True
-            )
+            found: list[dict[str, Any]] = []
+            after = None
+            while len(found) < most:
+                batch = alerts_source.list_alerts(
+                    conn, state=state, model_id=model_id, limit=page, after_id=after
+                )
+                found += batch
+                if len(batch) < page:
+                    break
+                after = max(int(a["id"]) for a in batch)
+            found.sort(key=lambda a: str(a.get("since") or a.get("raised_at") or ""), reverse=True)
+            if state == "cleared":
+                found.sort(key=lambda a: str(a.get("cleared_at") or ""), reverse=True)
+                found = found[:recent_cleared]
+            out += found
         return out
 
 

@@ -11,6 +11,7 @@ from plumbwatch.api import alerts_source
 from plumbwatch.api.auth import Principal
 from plumbwatch.api.openmetrics import Snapshot, families
 from plumbwatch.api.page_auth import page_user
+from plumbwatch.api.page_data import Gatherer
 from plumbwatch.api.schemas import errors
 from plumbwatch.errors import AuthError
 from plumbwatch.store import models as store_models
@@ -44,7 +45,7 @@ def metrics(request: Request) -> Response:
             latest = gather.latest(conn, m)
             records.append((m.name, latest[1] if latest else None))
         active: dict[str, int] = {}
-        for a in alerts_source.list_alerts(conn, state="active", limit=10_000):
+        for a in Gatherer.alerts(conn, states=("active",)):
             active[str(a.get("model"))] = active.get(str(a.get("model")), 0) + 1
         deliveries = alerts_source.delivery_counts(conn) if user.model is None else None
     collected = families(

@@ -68,7 +68,7 @@ def overview(request: Request) -> Response:
         models = store_models.list_models(conn=conn)
         if user.model is not None:
             models = [m for m in models if m.name == user.model]
-        active = alerts_source.list_alerts(conn, state="active", limit=1000)
+        active = Gatherer.alerts(conn, states=("active",))
         for m in models:
             latest = gather.latest(conn, m)
             version = history.current_version(conn, model_id=m.id)
