@@ -20,7 +20,6 @@ def number(x: object, digits: int = 3) -> str:
     null. Integers (counts) never get decimals."""
     if not is_number(x):
         return DASH
-    assert isinstance(x, int | float)
     if isinstance(x, int):
         return f"{x:,}"
     if abs(x) >= 1000:
@@ -31,14 +30,12 @@ def number(x: object, digits: int = 3) -> str:
 def count(x: object) -> str:
     if not is_number(x):
         return DASH
-    assert isinstance(x, int | float)
     return f"{round(x):,}"
 
 
 def percent(x: object, digits: int = 1) -> str:
     if not is_number(x):
         return DASH
-    assert isinstance(x, int | float)
     return f"{100 * x:.{digits}f} %"
 
 
@@ -46,7 +43,6 @@ def signed(x: object, digits: int = 3) -> str:
     """A change, with its sign and a true minus sign."""
     if not is_number(x):
         return DASH
-    assert isinstance(x, int | float)
     text = f"{x:+.{digits}f}"
     return text.replace("-", "−")
 

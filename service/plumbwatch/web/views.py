@@ -106,8 +106,6 @@ def evidence_text(ev: Mapping[str, Any]) -> Cell:
         return Cell(fmt.DASH)
     text = fmt.number(le, 2)
     sub = f"threshold {fmt.number(lt, 2)}" if fmt.is_number(lt) else ""
-    if fmt.is_number(lt) and lt:
-        sub += f" ({fmt.percent(le / lt, 0)} of the way)"
     return Cell(text, le, sub)
 
 
