@@ -293,3 +293,25 @@ def test_overview_lists_the_slices_that_need_attention() -> None:
         view=view,
     )
     assert "drifting" in parse(html).text
+
+
+def test_evidence_comes_from_the_metrics_or_the_records_streams() -> None:
+    entry = {"slice": "region:x", "version": None, "metrics": {}}
+    one_stream = {
+        "evidence": [
+            {
+                "slice": "region:x",
+                "version": "v3",
+                "log_evidence": 4.0,
+                "log_threshold": 8.0,
+                "started_at": "2026-05-01T00:00:00Z",
+            }
+        ]
+    }
+    assert views.evidence_of(one_stream, entry)["log_evidence"] == 4.0
+    two_streams = {
+        "evidence": [*one_stream["evidence"], {**one_stream["evidence"][0], "version": "v4"}]
+    }
+    assert views.evidence_of(two_streams, entry)["log_evidence"] is None  # which one? neither
+    with_metrics = {**entry, "metrics": {"log_evidence": 1.5, "log_threshold": 8.0}}
+    assert views.evidence_of(one_stream, with_metrics)["log_evidence"] == 1.5

@@ -89,14 +89,18 @@ def evidence_of(record: Mapping[str, Any], entry: Mapping[str, Any]) -> dict[str
         "log_evidence": metrics.get("log_evidence"),
         "log_threshold": metrics.get("log_threshold"),
     }
-    for e in record.get("evidence") or []:
-        if e.get("slice") == entry.get("slice") and e.get("version") == entry.get("version"):
-            for k in ("log_evidence", "log_threshold"):
-                if out[k] is None:
-                    out[k] = e.get(k)
-            out["started_at"] = e.get("started_at")
-            out["crossed"] = e.get("crossed")
-            break
+    streams = [e for e in record.get("evidence") or [] if e.get("slice") == entry.get("slice")]
+    exact = [e for e in streams if e.get("version") == entry.get("version")]
+    # Streams run per model version; an across-versions entry borrows the stream of
+    # its slice when the model has only one.
+    chosen = exact or (streams if entry.get("version") is None and len(streams) == 1 else [])
+    if chosen:
+        e = chosen[0]
+        for k in ("log_evidence", "log_threshold"):
+            if out[k] is None:
+                out[k] = e.get(k)
+        out["started_at"] = e.get("started_at")
+        out["crossed"] = e.get("crossed")
     return out
 
 
