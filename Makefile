@@ -5,13 +5,14 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 PYTEST_ARGS ?=
 
-.PHONY: help venv test test-fast lint typecheck bench demo clean
+.PHONY: help venv test test-fast lint typecheck bench demo clean browser
 
 help:
 	@echo "make demo       start plumbwatch on SQLite under ./var/ with fresh tokens"
 	@echo "make test       lint, type-check and run the whole suite (SQLite and PostgreSQL)"
 	@echo "make test-fast  the tests without the slow ones, stopping at the first failure"
 	@echo "make bench      run the benchmarks under tests/benchmarks/ (a report, not a test)"
+	@echo "make browser    install Debian's chromium for the browser test (needs root)"
 
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -28,7 +29,14 @@ lint: $(STAMP)
 typecheck: $(STAMP)
 	$(BIN)/mypy
 
-test: lint typecheck
+# Debian's Chromium for the browser tests (playwright drives it; it never downloads one).
+browser:
+	@if [ -x /usr/bin/chromium ]; then :; \
+	elif [ "$$(id -u)" = "0" ]; then \
+		apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium; \
+	else echo "chromium is missing: 'sudo apt-get install chromium' (the browser test skips without it)"; fi
+
+test: lint typecheck browser
 	$(BIN)/pytest --timeout=600 $(PYTEST_ARGS)
 
 test-fast: $(STAMP)
@@ -39,6 +47,7 @@ bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_ingest.py
 	$(BIN)/python tests/benchmarks/bench_evaluate.py --engine sqlite
 	$(BIN)/python tests/benchmarks/bench_evidence.py
+	$(BIN)/python tests/benchmarks/bench_pages.py --engine sqlite
 
 demo: $(STAMP)
 	mkdir -p var

@@ -59,3 +59,14 @@ def test_missing_file(monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setenv("PLUMBWATCH_CONFIG", "/nonexistent/pw.toml")
     with pytest.raises(ConfigError, match="does not exist"):
         load_settings()
+
+
+def test_page_settings(monkeypatch: pytest.MonkeyPatch) -> None:
+    s = load_settings()
+    assert (s.public_pages, s.session_key, s.metrics_slice_cap) == (False, None, 25)
+    monkeypatch.setenv("PLUMBWATCH_PUBLIC_PAGES", "true")
+    monkeypatch.setenv("PLUMBWATCH_SESSION_KEY", "a-long-enough-key")
+    assert load_settings().public_pages is True
+    monkeypatch.setenv("PLUMBWATCH_SESSION_KEY", "short")
+    with pytest.raises(ConfigError, match="session_key"):
+        load_settings()

@@ -126,6 +126,17 @@ class Settings(BaseSettings):
     cusum_arl0: int = Field(
         10_000, ge=100, description="in-control mean run length of each slice's CUSUM, rows"
     )
+    public_pages: bool = Field(
+        False, description="pages and /metrics readable without a token (closed networks)"
+    )
+    session_key: str | None = Field(
+        None,
+        min_length=16,
+        description="signs browser sessions; set it when several servers share a database",
+    )
+    metrics_slice_cap: int = Field(
+        25, ge=1, description="slice entries per model and window exported on /metrics"
+    )
     models: dict[str, dict[str, Any]] = Field(
         default_factory=dict, description="model declarations from the TOML file"
     )

@@ -2,25 +2,33 @@
 
 from __future__ import annotations
 
+import secrets
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 from datetime import UTC, datetime
 
 from fastapi import FastAPI
 from sqlalchemy.engine import Engine
+from starlette.staticfiles import StaticFiles
 
 from plumbwatch import __version__
 from plumbwatch.api import errors
+from plumbwatch.api.page_auth import Sessions
+from plumbwatch.api.page_data import Gatherer
 from plumbwatch.api.routes import (
     alerts,
     evaluations,
     evidence,
     health,
     models,
+    openmetrics,
     outcomes,
+    pages,
     predictions,
     recalibration,
+    sign_in,
 )
+from plumbwatch.api.telemetry import IngestCounter, Telemetry
 from plumbwatch.config import Settings
 from plumbwatch.evaluate.run import Options
 from plumbwatch.jobs.alerting import Alerting
@@ -76,6 +84,11 @@ def create_app(
     app.state.writer = GroupWriter(engine)
     holder = holder_name()
     app.state.alerting = Alerting(engine, settings, holder=holder, clock_us=clock_us)
+    app.state.telemetry = Telemetry()
+    app.state.gatherer = Gatherer()
+    # Without a configured key, sessions last as long as this process (page_auth.py).
+    key = settings.session_key.encode() if settings.session_key else secrets.token_bytes(32)
+    app.state.sessions = Sessions(key)
     app.state.evaluator = Evaluator(
         engine,
         holder,
@@ -83,6 +96,7 @@ def create_app(
         retention_days=settings.retention_days,
         after_record=app.state.alerting.after_record,
         after_commit=app.state.alerting.wake,
+        on_duration=app.state.telemetry.evaluated,
     )
     errors.install(app)
     for module in (
@@ -96,4 +110,8 @@ def create_app(
         alerts,
     ):
         app.include_router(module.router)
+    for module in (pages, sign_in, openmetrics):
+        app.include_router(module.router)
+    app.mount("/static", StaticFiles(packages=[("plumbwatch.web", "static")]), name="static")
+    app.add_middleware(IngestCounter, telemetry=app.state.telemetry)
     return app

@@ -10,6 +10,7 @@ from __future__ import annotations
 import logging
 import os
 import socket
+import time
 import uuid
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -46,6 +47,8 @@ class Evaluator:
     after_record: AfterRecord | None = None
     # Runs after each evaluation committed (wakes the delivery sender).
     after_commit: Callable[[], None] | None = None
+    # Told (model, seconds) after each completed run (the /metrics duration histogram).
+    on_duration: Callable[[MonitoredModel, float], None] | None = None
 
     def evaluate(
         self, model: MonitoredModel, *, as_of_us: int, now_us: int, notify: bool = True
@@ -81,6 +84,7 @@ class Evaluator:
                     last = store_evaluations.latest_as_of(conn, model_id=model.id)
                 if last is not None and last >= unless_done_since:
                     return None
+            started = time.perf_counter()
             record = evaluate_model(
                 self.engine,
                 model,
@@ -92,6 +96,8 @@ class Evaluator:
             )
             if self.after_commit is not None:
                 self.after_commit()
+            if self.on_duration is not None:
+                self.on_duration(model, time.perf_counter() - started)
             return record
         finally:
             with self.engine.begin() as conn:

@@ -112,3 +112,10 @@ def authenticate(*, conn: sa.Connection, secret: str, now_us: int) -> Token | No
         return None
     token = _from_row(row)
     return token if token.usable(now_us) else None
+
+
+def get_with_hash(*, conn: sa.Connection, token_id: int) -> tuple[Token, str] | None:
+    """The token with this id and its stored hash (browser sessions are signed with
+    a key derived from it, so revoking or replacing the token ends them)."""
+    row = conn.execute(_select().where(t.c.id == token_id)).first()
+    return (_from_row(row), row.token_hash) if row else None

@@ -12,6 +12,7 @@ from starlette.concurrency import run_in_threadpool
 
 from plumbwatch.api.auth import Principal
 from plumbwatch.api.deps import read_json
+from plumbwatch.api.telemetry import note_batch
 from plumbwatch.config import Settings
 from plumbwatch.errors import TooLarge
 from plumbwatch.store import models as store_models
@@ -40,6 +41,7 @@ async def rows_of(request: Request, settings: Settings, key: str) -> Any:
     data = await read_json(request, max_bytes=settings.max_body_bytes)
     if isinstance(data, dict) and isinstance(data.get(key), list):
         n = len(data[key])
+        note_batch(request.scope, n)
         if n > settings.max_batch_rows:
             raise TooLarge(
                 f"{n} rows in one batch; the limit is {settings.max_batch_rows} "
