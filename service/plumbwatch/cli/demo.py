@@ -35,6 +35,7 @@ from plumbwatch.timefmt import format_instant, to_micros
 STATUS_PAGE = "/"
 JSON_STATUS = "/v1/models/late-delivery/status"
 READY_TIMEOUT_S = 60
+_RUN_CLI = "import sys; from plumbwatch.cli import main; sys.exit(main())"
 STOP_TIMEOUT_S = 15
 
 
@@ -158,10 +159,8 @@ def run_demo(settings: Settings, *, host: str, port: int, options: DemoOptions) 
     signal.signal(signal.SIGTERM, _interrupt)  # `kill` stops the demo as Ctrl-C does
     began = time.time()
     with log.open("ab") as handle:
-        serve = ["serve", "--host", host, "--port", str(port)]
         server = subprocess.Popen(
-            [sys.executable, "-c", "import sys; from plumbwatch.cli import main; sys.exit(main())"]
-            + serve,
+            [sys.executable, "-c", _RUN_CLI, "serve", "--host", host, "--port", str(port)],
             env=env,
             stdout=handle,
             stderr=subprocess.STDOUT,
