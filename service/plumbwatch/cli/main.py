@@ -1,4 +1,4 @@
-"""``plumbwatch``: serve, migrate, token, demo.
+"""``plumbwatch``: serve, migrate, token, evaluate, rebuild, load, demo.
 
 Every command builds the settings once and passes them down. Errors a user can
 fix end with a one-line message and exit status 2; nothing prints a traceback
@@ -16,6 +16,7 @@ from datetime import UTC, datetime
 from sqlalchemy.engine import Engine
 
 from plumbwatch import __version__
+from plumbwatch.cli.load import add_parser as add_load_parser
 from plumbwatch.config import Settings, load_settings
 from plumbwatch.errors import PlumbwatchError
 from plumbwatch.store import tokens
@@ -238,6 +239,8 @@ def build_parser() -> argparse.ArgumentParser:
     rebuild = sub.add_parser("rebuild", help="recompute sketches from the raw rows")
     rebuild.add_argument("--model", help="only this model")
     rebuild.set_defaults(func=cmd_rebuild)
+
+    add_load_parser(sub)
 
     demo = sub.add_parser(
         "demo", help="migrate, create tokens, serve, and replay the courier demo into it"

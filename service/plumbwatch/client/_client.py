@@ -21,7 +21,7 @@ from urllib.parse import quote
 
 import httpx
 
-from plumbwatch.client._errors import RequestRejected, RowProblem, ServerUnavailable
+from plumbwatch.client._errors import RequestRejected, RowError, RowProblem, ServerUnavailable
 from plumbwatch.client._rows import as_rows, chunks, encode, instant_text
 
 DEFAULT_BATCH_SIZE = 5_000  # half the server's default max_batch_rows
@@ -140,14 +140,11 @@ class Client:
         for batch in chunks(rows, self.batch_size):
             try:
                 body = encode(kind, batch)
-            except Exception as exc:
-                problem = getattr(exc, "problem", None)
-                if problem is not None and problem.index is not None:
-                    problem = RowProblem(problem.index + offset, problem.field, problem.reason)
-                    raise RequestRejected(
-                        0, "not_sent", "a row cannot be sent as JSON", [problem], stored=offset
-                    ) from exc
-                raise
+            except RowError as exc:
+                # Count the row in what the caller passed, like the server's details.
+                problem = exc.problem
+                index = None if problem.index is None else problem.index + offset
+                raise RowError(index, problem.field, problem.reason, stored=offset) from None
             response = self._request(
                 "POST", path, content=body, params=params, offset=offset, stored=offset
             )

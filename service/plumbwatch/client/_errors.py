@@ -37,11 +37,14 @@ class ClientError(Exception):
 
 
 class RowError(ClientError, ValueError):
-    """A row could not be sent as it is (the message names the row and the field)."""
+    """A row could not be sent as it is (the message names the row and the field).
 
-    def __init__(self, index: int, field: str, reason: str) -> None:
-        super().__init__(f"row {index}: {field}: {reason}")
+    Nothing of its batch was sent; ``stored`` rows before it were."""
+
+    def __init__(self, index: int | None, field: str, reason: str, *, stored: int = 0) -> None:
         self.problem = RowProblem(index, field, reason)
+        super().__init__(str(self.problem))
+        self.stored = stored
 
 
 class RequestRejected(ClientError):
