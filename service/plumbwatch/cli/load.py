@@ -54,11 +54,11 @@ class ProgressBar:
     """A progress bar of our own on stderr: redrawn in place on a terminal, a line
     every tenth of the way otherwise (logs stay readable)."""
 
-    def __init__(self, label: str, total: int, stream: TextIO = sys.stderr) -> None:
+    def __init__(self, label: str, total: int, stream: TextIO | None = None) -> None:
         self.label = label
         self.total = max(total, 1)
-        self.stream = stream
-        self.tty = stream.isatty()
+        self.stream = stream or sys.stderr
+        self.tty = self.stream.isatty()
         self.began = time.monotonic()
         self._last_draw = 0.0
         self._last_tenth = -1
