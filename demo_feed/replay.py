@@ -9,8 +9,9 @@ running all quarter would have recorded.
 
 Only the last ``notify_days`` simulated days are evaluated with
 ``notify: true``: those are the days a real on-call rota would have seen, and
-the storm's first crossing falls inside them (about day 61 of 90, see
-``scenario``); the quiet weeks before are a backfill that must not page.
+the storm's evidence crosses inside them (the rows of about day 61, matured
+around day 68 of 90, see ``scenario``); the quiet weeks before are a backfill
+that must not page.
 An alert stays raised until its condition clears, so the storm pages once per
 slice, not once per day.
 
