@@ -9,10 +9,12 @@ kills the process on the way out whatever happened.
 from __future__ import annotations
 
 import os
+import re
 import signal
 import socket
 import subprocess
 import sys
+import threading
 import time
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -181,3 +183,28 @@ def engine_params() -> list[Any]:
         pytest.param("sqlite", id="sqlite"),
         pytest.param("postgresql", id="postgresql", marks=pytest.mark.postgres),
     ]
+
+
+class Lines:
+    """Collects a process's output lines in a thread; ``wait_for`` is bounded."""
+
+    def __init__(self, process: subprocess.Popen[str]) -> None:
+        self.lines: list[str] = []
+        assert process.stdout is not None
+        stream = process.stdout
+        self._stream = stream
+        self._thread = threading.Thread(target=lambda: self.lines.extend(stream), daemon=True)
+        self._thread.start()
+
+    def close(self) -> None:
+        self._thread.join(timeout=10)
+        self._stream.close()
+
+    def wait_for(self, pattern: str, timeout: float) -> re.Match[str]:
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            for line in list(self.lines):
+                if found := re.search(pattern, line):
+                    return found
+            time.sleep(0.2)
+        raise AssertionError(f"no line matching {pattern!r} in:\n{''.join(self.lines)}")

@@ -4,11 +4,8 @@ reachable with the printed read token, and Ctrl-C stops all of it cleanly."""
 from __future__ import annotations
 
 import os
-import re
 import signal
 import subprocess
-import threading
-import time
 from pathlib import Path
 
 import httpx
@@ -17,31 +14,6 @@ import pytest
 from tests import live
 
 pytestmark = [pytest.mark.slow, pytest.mark.timeout(300)]
-
-
-class Lines:
-    """Collects a process's output lines in a thread; ``wait_for`` is bounded."""
-
-    def __init__(self, process: subprocess.Popen[str]) -> None:
-        self.lines: list[str] = []
-        assert process.stdout is not None
-        stream = process.stdout
-        self._stream = stream
-        self._thread = threading.Thread(target=lambda: self.lines.extend(stream), daemon=True)
-        self._thread.start()
-
-    def close(self) -> None:
-        self._thread.join(timeout=10)
-        self._stream.close()
-
-    def wait_for(self, pattern: str, timeout: float) -> re.Match[str]:
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            for line in list(self.lines):
-                if found := re.search(pattern, line):
-                    return found
-            time.sleep(0.2)
-        raise AssertionError(f"no line matching {pattern!r} in:\n{''.join(self.lines)}")
 
 
 @pytest.mark.parametrize("kind", live.engine_params())
@@ -58,7 +30,7 @@ def test_demo_runs_and_stops_cleanly_on_ctrl_c(kind: str, tmp_path: Path) -> Non
             text=True,
         )
         try:
-            out = Lines(process)
+            out = live.Lines(process)
             page = out.wait_for(r"status page:\s+(\S+)", 90).group(1)
             token = out.wait_for(r"read token:\s+(\S+)", 5).group(1)
             out.wait_for(r"webhook receiver listening", 30)
