@@ -12,6 +12,7 @@ from __future__ import annotations
 import os
 import signal
 import subprocess
+import sys
 import time
 from pathlib import Path
 
@@ -34,7 +35,7 @@ def git(*args: str, cwd: Path = ROOT) -> str:
 
 def newcomer_environment(port: int) -> dict[str, str]:
     """The machine's environment without this test run's virtualenv or settings."""
-    venv_bin = str(Path(os.sys.executable).parent)  # type: ignore[attr-defined]
+    venv_bin = str(Path(sys.executable).parent)
     path = os.pathsep.join(p for p in os.environ["PATH"].split(os.pathsep) if p != venv_bin)
     env = {
         k: v
