@@ -38,6 +38,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--notify-days", type=int, default=30, help="evaluate the last N days with notify: true"
     )
+    p.add_argument(
+        "--claim-every-days", type=int, default=7, help="replay: evaluate damage-claim every N days"
+    )
     p.add_argument("--receiver-port", type=int, help="run the webhook receiver on this port")
     p.add_argument("--tick", type=float, default=15.0, help="live: seconds between sends")
     p.add_argument("--evaluate-every", type=float, default=60.0, help="live: seconds between runs")
@@ -84,6 +87,7 @@ def main(argv: list[str] | None = None) -> int:
                 scenario,
                 history_days=args.history_days,
                 notify_days=args.notify_days,
+                claim_every_days=args.claim_every_days,
                 say=_say,
                 started_at=started,
             )
