@@ -91,6 +91,12 @@ def main(argv: list[str] | None = None) -> int:
                 say=_say,
                 started_at=started,
             )
+            if feed.has_history():
+                _say(
+                    "this database already holds a demo history; a replay needs a fresh one "
+                    "(`make demo` starts from a fresh ./var/demo.db). Serving what is there."
+                )
+                return 0
             feed.declare()
             _say(f"replaying {args.history_days} days of the courier's history ...")
             seconds = feed.replay(int(now.timestamp()))

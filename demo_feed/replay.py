@@ -45,7 +45,7 @@ from demo_feed.scenario import (
     claim_declaration,
     late_declaration,
 )
-from plumbwatch.client import Client
+from plumbwatch.client import Client, RequestRejected
 
 MODELS = (LATE_MODEL, CLAIM_MODEL)
 LATE_DELAY_DAYS = 7  # deliveries come within 6.6 days of dispatch
@@ -99,6 +99,16 @@ class Feed:
             for old in [k for k in self._days if k < index - CLAIM_DELAY_DAYS - 1]:
                 del self._days[old]
         return found
+
+    def has_history(self) -> bool:
+        """Whether the server already holds this demo's models (an earlier run)."""
+        try:
+            self.client.get_model(LATE_MODEL)
+        except RequestRejected as exc:
+            if exc.status == 404:
+                return False
+            raise
+        return True
 
     def declare(self) -> None:
         self.client.put_model(LATE_MODEL, late_declaration())

@@ -28,7 +28,9 @@ def test_replay_evaluates_each_day_as_of_its_end(live_service: tuple[live.Server
     said: list[str] = []
     with Client(server.url, token) as client:
         feed = Feed(client, scenario, history_days=DAYS, notify_days=3, say=said.append)
+        assert not feed.has_history()
         feed.declare()
+        assert feed.has_history()  # a second run would refuse to replay over it
         feed.replay(int(now.timestamp()))
         listed = client._json("GET", f"/v1/models/{LATE_MODEL}/evaluations?limit=100")
         claims = client._json("GET", f"/v1/models/{CLAIM_MODEL}/evaluations?limit=100")

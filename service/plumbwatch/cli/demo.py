@@ -202,14 +202,16 @@ def run_demo(settings: Settings, *, host: str, port: int, options: DemoOptions) 
                     start_new_session=True,
                 )
             )
-        while all(p.poll() is None for p in children):
+        # Serve until Ctrl-C; a feed that finishes (--no-live, or nothing to replay)
+        # leaves the server up, a process that fails stops the demo.
+        while server.poll() is None and all(p.poll() in (None, 0) for p in children):
             time.sleep(0.5)
-        for p in children:
-            if p.poll() not in (None, 0):
-                print(f"plumbwatch demo: a process stopped with {p.returncode}; stopping the rest")
-                print(_tail(log, 10))
-                return 1
-        return 0
+        failed = [p for p in children if p.poll() not in (None, 0)]
+        for p in failed:
+            print(f"plumbwatch demo: a process stopped with {p.returncode}; stopping the rest")
+        if server in failed or server.poll() is not None:
+            print(_tail(log, 10))
+        return 1 if failed or server.poll() is not None else 0
     except KeyboardInterrupt:
         return 0
     finally:

@@ -79,9 +79,7 @@ def _number(text: Any) -> Any:
 _BINARY = {"0": 0, "1": 1, "true": True, "false": False}
 
 
-def shape_row(
-    kind: str, flat: dict[str, Any], *, text: bool, binary: bool | None
-) -> dict[str, Any]:
+def shape_row(flat: dict[str, Any], *, text: bool, binary: bool | None) -> dict[str, Any]:
     """A row of flat columns (CSV style) in the API's shape.
 
     ``text``: values are CSV strings (empty means absent). ``binary``: the model's
@@ -155,7 +153,7 @@ class Source:
                     )
                     continue
                 flat = dict(zip(header, values, strict=True))
-                yield Line(where, shape_row(self.kind, flat, text=True, binary=self.binary))
+                yield Line(where, shape_row(flat, text=True, binary=self.binary))
         self.position = self.size
 
     def _jsonl(self) -> Iterator[Line]:
@@ -172,7 +170,7 @@ class Source:
                 if not isinstance(value, dict):
                     yield Line(number, None, "each line must be a JSON object")
                     continue
-                yield Line(number, shape_row(self.kind, value, text=False, binary=self.binary))
+                yield Line(number, shape_row(value, text=False, binary=self.binary))
 
     def _parquet(self) -> Iterator[Line]:
         try:
@@ -192,7 +190,7 @@ class Source:
                 if problem:
                     yield Line(number, None, problem)
                     continue
-                yield Line(number, shape_row(self.kind, flat, text=False, binary=self.binary))
+                yield Line(number, shape_row(flat, text=False, binary=self.binary))
             self.position = int(self.size * number / total)
 
 

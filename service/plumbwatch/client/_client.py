@@ -10,6 +10,7 @@ with :class:`ServerUnavailable`. A 4xx answer is never retried: it raises
 
 from __future__ import annotations
 
+import json
 import random
 import time
 from collections.abc import Callable, Iterable
@@ -282,8 +283,6 @@ class Client:
 
 
 def encode_body(body: Any) -> bytes:
-    import json
-
     return json.dumps(body, separators=(",", ":")).encode()
 
 
