@@ -57,6 +57,7 @@ def _stop_on_term(stop: threading.Event) -> None:
         raise KeyboardInterrupt
 
     signal.signal(signal.SIGTERM, handler)
+    signal.signal(signal.SIGINT, signal.default_int_handler)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -157,6 +157,8 @@ def run_demo(settings: Settings, *, host: str, port: int, options: DemoOptions) 
         print("  serving without it. Clone the repository and run `make demo` for the full demo.")
     children: list[subprocess.Popen[bytes]] = []
     signal.signal(signal.SIGTERM, _interrupt)  # `kill` stops the demo as Ctrl-C does
+    # Ctrl-C even when started from a shell that ignores SIGINT for background jobs.
+    signal.signal(signal.SIGINT, signal.default_int_handler)
     began = time.time()
     with log.open("ab") as handle:
         server = subprocess.Popen(
