@@ -55,8 +55,13 @@ LATE_VERSION = "v7"
 CLAIM_VERSION = "v2"
 
 STORM_REGION = "north-coast"
-STORM_START = 52  # day index (0 = first day of the history)
-STORM_FULL = 60
+# The storm is placed from the end of the history, so a shorter history (for a
+# slower machine: ``--history-days``) still shows it: with 90 days it starts on
+# day 52 (0 = the first day) and is at full strength from day 60.
+STORM_DAYS_BEFORE_END = 38
+STORM_RAMP_DAYS = 8
+STORM_START = HISTORY_DAYS - STORM_DAYS_BEFORE_END
+STORM_FULL = STORM_START + STORM_RAMP_DAYS
 STORM_SHIFT = 1.1  # logit units: p 0.16 -> about 0.36 at full strength
 
 # name, share of parcels, logit effect, its two depots (share 60/40) and their effects
@@ -111,18 +116,19 @@ def claim_declaration() -> dict[str, Any]:
     }
 
 
-def storm_ramp(day: int) -> float:
+def storm_ramp(day: int, history_days: int = HISTORY_DAYS) -> float:
     """0 before the storm season, rising to 1 at full strength, then 1."""
-    if day < STORM_START:
+    start = history_days - STORM_DAYS_BEFORE_END
+    if day < start:
         return 0.0
-    if day >= STORM_FULL:
+    if day >= start + STORM_RAMP_DAYS:
         return 1.0
-    return (day - STORM_START + 1) / (STORM_FULL - STORM_START + 1)
+    return (day - start + 1) / (STORM_RAMP_DAYS + 1)
 
 
-def storm_shift(day: int) -> float:
+def storm_shift(day: int, history_days: int = HISTORY_DAYS) -> float:
     """Logit shift of lateness in the storm region on a day of the history."""
-    return STORM_SHIFT * storm_ramp(day)
+    return STORM_SHIFT * storm_ramp(day, history_days)
 
 
 def _sigmoid(x: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -238,6 +244,7 @@ class Scenario:
     start: int
     seed: int = SEED
     parcels_per_day: int = PARCELS_PER_DAY
+    history_days: int = HISTORY_DAYS  # places the storm (see STORM_DAYS_BEFORE_END)
 
     @classmethod
     def ending_today(
@@ -251,7 +258,12 @@ class Scenario:
         """History of ``history_days`` whole days before today's UTC midnight."""
         midnight = now.astimezone(UTC).replace(hour=0, minute=0, second=0, microsecond=0)
         first = midnight - timedelta(days=history_days)
-        return cls(int(first.timestamp()), seed=seed, parcels_per_day=parcels_per_day)
+        return cls(
+            int(first.timestamp()),
+            seed=seed,
+            parcels_per_day=parcels_per_day,
+            history_days=history_days,
+        )
 
     def day_start(self, index: int) -> int:
         return self.start + index * DAY_S
@@ -276,7 +288,8 @@ class Scenario:
         # from it, plus the storm where there is one, so calibration is exact elsewhere.
         p_late = np.clip(np.round(_sigmoid(z), 4), 0.0005, 0.9995)
         storm = np.array([r[0] == STORM_REGION for r in REGIONS])[region]
-        shift = np.where(storm, storm_shift(index), EASING_SHIFT * storm_ramp(index))
+        ramp = storm_ramp(index, self.history_days)
+        shift = np.where(storm, STORM_SHIFT * ramp, EASING_SHIFT * ramp)
         true_late = _sigmoid(_logit(p_late) + shift)
         late = rng.random(n) < true_late
         # On-time parcels arrive within about three days, late ones later; express faster.

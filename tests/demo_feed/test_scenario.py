@@ -115,3 +115,18 @@ def test_evidence_crosses_the_paging_threshold_only_in_the_storm_region(days: li
     storm_day = crossed.pop(STORM_REGION)
     assert storm_day is not None and STORM_START < storm_day <= STORM_START + 12
     assert crossed == dict.fromkeys(crossed)  # nobody else crosses
+
+
+def test_a_shorter_history_still_shows_the_storm() -> None:
+    # `--history-days 60` for a slower machine: the storm is placed from the end.
+    history = 60
+    scenario = Scenario.ending_today(ANCHOR, history_days=history)
+    state = MixtureEvidence.start()
+    threshold = log_threshold(alpha=0.01, n_slices=60)
+    crossed = None
+    for d in scenario.days(0, history - HORIZON_DAYS - 1):
+        keep = d.region == STORM
+        state, path = state.update_with_path(d.late[keep].astype(float), d.p_late[keep])
+        if crossed is None and path.size and path.max() >= threshold:
+            crossed = d.index
+    assert crossed is not None and crossed < history - HORIZON_DAYS
