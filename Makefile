@@ -3,12 +3,14 @@ PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
+RUN_STAMP := $(VENV)/.installed-run
 PYTEST_ARGS ?=
+DEMO_ARGS ?=
 
 .PHONY: help venv test test-fast lint typecheck bench demo clean browser
 
 help:
-	@echo "make demo       start plumbwatch on SQLite under ./var/ with fresh tokens"
+	@echo "make demo       replay the courier demo into a fresh ./var/demo.db and serve it (Ctrl-C stops)"
 	@echo "make test       lint, type-check and run the whole suite (SQLite and PostgreSQL)"
 	@echo "make test-fast  the tests without the slow ones, stopping at the first failure"
 	@echo "make bench      run the benchmarks under tests/benchmarks/ (a report, not a test)"
@@ -18,7 +20,14 @@ $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e ".[dev]"
-	touch $(STAMP)
+	touch $(STAMP) $(RUN_STAMP)
+
+# The demo needs the service, not the test tools: a shorter first install.
+$(RUN_STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e .
+	touch $(RUN_STAMP)
 
 venv: $(STAMP)
 
@@ -49,9 +58,11 @@ bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_evidence.py
 	$(BIN)/python tests/benchmarks/bench_pages.py --engine sqlite
 
-demo: $(STAMP)
+# Each run replays a fresh history ending today, so it starts from an empty demo file.
+demo: $(RUN_STAMP)
 	mkdir -p var
-	PLUMBWATCH_DATABASE_URL=$${PLUMBWATCH_DATABASE_URL:-sqlite:///./var/demo.db} $(BIN)/plumbwatch demo
+	rm -f var/demo.db var/demo.db-wal var/demo.db-shm
+	PLUMBWATCH_DATABASE_URL=$${PLUMBWATCH_DATABASE_URL:-sqlite:///./var/demo.db} $(BIN)/plumbwatch demo $(DEMO_ARGS)
 
 clean:
 	rm -rf $(VENV) .pytest_cache .mypy_cache .ruff_cache .hypothesis

@@ -12,6 +12,7 @@ import os
 import uuid
 from collections.abc import Iterator
 from pathlib import Path
+from typing import Any
 
 import pytest
 import sqlalchemy as sa
@@ -19,6 +20,7 @@ from sqlalchemy.engine import Engine
 
 from plumbwatch.store.engine import create_engine
 from plumbwatch.store.migrate import upgrade
+from tests.live import engine_params as live_engine_params
 
 POSTGRES_URL = os.environ.get(
     "PLUMBWATCH_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test"
@@ -102,3 +104,15 @@ def engine(empty_engine: Engine) -> Engine:
     """A migrated database of the parametrised kind."""
     upgrade(empty_engine)
     return empty_engine
+
+
+@pytest.fixture(scope="session", params=live_engine_params())
+def live_service(
+    request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory
+) -> Iterator[tuple[Any, str]]:
+    """One real ``plumbwatch serve`` per engine, shared by the tests that talk HTTP
+    (client, loader, demo replay); each test uses models of its own."""
+    from tests import live
+
+    with live.service(request.param, tmp_path_factory.mktemp("live")) as found:
+        yield found

@@ -9,10 +9,12 @@ kills the process on the way out whatever happened.
 from __future__ import annotations
 
 import os
+import re
 import signal
 import socket
 import subprocess
 import sys
+import threading
 import time
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -136,3 +138,73 @@ def declare_binary_model(url: str, token: str, name: str, **fields: Any) -> None
         timeout=30,
     )
     r.raise_for_status()
+
+
+@contextmanager
+def database(kind: str, folder: Path) -> Iterator[str]:
+    """An empty database URL of ``kind`` ("sqlite" or "postgresql"), for fixtures wider
+    than one test (the per-test ``database_url`` fixture lives in conftest)."""
+    if kind == "sqlite":
+        yield f"sqlite:///{folder / 'live.db'}"
+        return
+    import uuid
+
+    import sqlalchemy as sa
+
+    from tests.conftest import POSTGRES_URL, postgres_schema_url, require_postgres
+
+    require_postgres()
+    schema = f"t_{uuid.uuid4().hex[:12]}"
+    admin = sa.create_engine(POSTGRES_URL)
+    with admin.begin() as conn:
+        conn.execute(sa.text(f'CREATE SCHEMA "{schema}"'))
+    try:
+        yield postgres_schema_url(schema)
+    finally:
+        with admin.begin() as conn:
+            conn.execute(sa.text(f'DROP SCHEMA "{schema}" CASCADE'))
+        admin.dispose()
+
+
+@contextmanager
+def service(kind: str, folder: Path, **kwargs: Any) -> Iterator[tuple[Server, str]]:
+    """A migrated database of ``kind``, an admin token and a server on it."""
+    with database(kind, folder) as url:
+        token = migrate_and_token(url)
+        with served(url, folder / "server.log", **kwargs) as server:
+            yield server, token
+
+
+def engine_params() -> list[Any]:
+    """Fixture params over both engines, the PostgreSQL one marked like conftest's."""
+    import pytest
+
+    return [
+        pytest.param("sqlite", id="sqlite"),
+        pytest.param("postgresql", id="postgresql", marks=pytest.mark.postgres),
+    ]
+
+
+class Lines:
+    """Collects a process's output lines in a thread; ``wait_for`` is bounded."""
+
+    def __init__(self, process: subprocess.Popen[str]) -> None:
+        self.lines: list[str] = []
+        assert process.stdout is not None
+        stream = process.stdout
+        self._stream = stream
+        self._thread = threading.Thread(target=lambda: self.lines.extend(stream), daemon=True)
+        self._thread.start()
+
+    def close(self) -> None:
+        self._thread.join(timeout=10)
+        self._stream.close()
+
+    def wait_for(self, pattern: str, timeout: float) -> re.Match[str]:
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            for line in list(self.lines):
+                if found := re.search(pattern, line):
+                    return found
+            time.sleep(0.2)
+        raise AssertionError(f"no line matching {pattern!r} in:\n{''.join(self.lines)}")

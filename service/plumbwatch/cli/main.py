@@ -1,4 +1,4 @@
-"""``plumbwatch``: serve, migrate, token, demo.
+"""``plumbwatch``: serve, migrate, token, evaluate, rebuild, load, demo.
 
 Every command builds the settings once and passes them down. Errors a user can
 fix end with a one-line message and exit status 2; nothing prints a traceback
@@ -17,6 +17,7 @@ from datetime import UTC, datetime
 from sqlalchemy.engine import Engine
 
 from plumbwatch import __version__
+from plumbwatch.cli.load import add_parser as add_load_parser
 from plumbwatch.config import Settings, load_settings
 from plumbwatch.errors import PlumbwatchError
 from plumbwatch.store import tokens
@@ -212,9 +213,16 @@ def cmd_rebuild(settings: Settings, args: argparse.Namespace) -> int:
 
 
 def cmd_demo(settings: Settings, args: argparse.Namespace) -> int:
-    from plumbwatch.cli.demo import run_demo
+    from plumbwatch.cli.demo import DemoOptions, run_demo
 
-    return run_demo(settings, host=args.host or settings.host, port=args.port or settings.port)
+    options = DemoOptions(
+        feed=not args.no_feed,
+        history_days=args.history_days,
+        parcels_per_day=args.parcels_per_day,
+    )
+    return run_demo(
+        settings, host=args.host or settings.host, port=args.port or settings.port, options=options
+    )
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -257,9 +265,16 @@ def build_parser() -> argparse.ArgumentParser:
     rebuild.add_argument("--model", help="only this model")
     rebuild.set_defaults(func=cmd_rebuild)
 
-    demo = sub.add_parser("demo", help="migrate a local SQLite file, create tokens and serve")
+    add_load_parser(sub)
+
+    demo = sub.add_parser(
+        "demo", help="migrate, create tokens, serve, and replay the courier demo into it"
+    )
     demo.add_argument("--host")
     demo.add_argument("--port", type=int)
+    demo.add_argument("--no-feed", action="store_true", help="serve only, without the demo feed")
+    demo.add_argument("--history-days", type=int, default=90, help="days of history to replay")
+    demo.add_argument("--parcels-per-day", type=int, default=2_000, help="demo volume")
     demo.set_defaults(func=cmd_demo)
     return parser
 
