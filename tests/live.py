@@ -8,6 +8,8 @@ kills the process on the way out whatever happened.
 
 from __future__ import annotations
 
+import contextlib
+
 import os
 import re
 import signal
@@ -193,8 +195,13 @@ class Lines:
         assert process.stdout is not None
         stream = process.stdout
         self._stream = stream
-        self._thread = threading.Thread(target=lambda: self.lines.extend(stream), daemon=True)
+        self._thread = threading.Thread(target=self._read, daemon=True)
         self._thread.start()
+
+    def _read(self) -> None:
+        # close() may shut the pipe while a grandchild still holds it open.
+        with contextlib.suppress(ValueError, OSError):
+            self.lines.extend(self._stream)
 
     def close(self) -> None:
         self._thread.join(timeout=10)
