@@ -9,7 +9,6 @@ kills the process on the way out whatever happened.
 from __future__ import annotations
 
 import contextlib
-
 import os
 import re
 import signal
