@@ -55,6 +55,33 @@ def test_fast_instant_matches_the_full_parse(text: str) -> None:
         assert fast == slow_instant(text)
 
 
+# The form pipelines send ('Z', upper-case 'T'), read field by field with each minute
+# cached: near-valid values, calendar edges (Feb 29, second 60, hour 24) and years at both
+# ends of the calendar.
+plain_utc = st.builds(
+    lambda y, mo, d, h, mi, s, frac: f"{y:04d}-{mo:02d}-{d:02d}T{h:02d}:{mi:02d}:{s:02d}{frac}Z",
+    st.one_of(st.integers(1969, 2101), st.sampled_from([1, 2, 1900, 2000, 9998, 9999])),
+    st.integers(0, 13),
+    st.integers(0, 32),
+    st.integers(0, 24),
+    st.integers(0, 60),
+    st.integers(0, 60),
+    st.sampled_from(["", ".0", ".5", ".000001", ".123456", ".999999", ".1234567"]),
+)
+
+
+@settings(max_examples=2_000, deadline=None, database=None)
+@given(plain_utc)
+def test_plain_utc_instants_match_the_full_parse(text: str) -> None:
+    expected = slow_instant(text)
+    fast = _fast_instant(text)
+    if fast is not None:
+        assert fast == expected
+    elif expected is not None:
+        # Only the calendar's edges and sub-microsecond digits take the slow path.
+        assert text.startswith(("0001-", "9999-")) or text.endswith(".1234567Z")
+
+
 values = st.one_of(
     st.none(),
     st.booleans(),

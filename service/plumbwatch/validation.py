@@ -9,9 +9,10 @@ probabilities as float64, segments as an unordered map, strings exactly.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
-from typing import Any
+from datetime import UTC, date, datetime, timedelta
+from typing import Any, NamedTuple
 
 import orjson
 
@@ -29,8 +30,9 @@ OUTCOME_FIELDS = frozenset({"id", "outcome", "observed_at"})
 _BINARY_FIELDS = PREDICTION_FIELDS - {"probabilities"}
 
 
-@dataclass(frozen=True, slots=True)
-class PredictionRow:
+# Rows are named tuples, not frozen dataclasses: building one is 4x cheaper, and
+# ingest builds one per row of every batch.
+class PredictionRow(NamedTuple):
     index: int  # position in the request, for error details
     client_id: str
     predicted_at_us: int
@@ -49,8 +51,7 @@ class PredictionRow:
         )
 
 
-@dataclass(frozen=True, slots=True)
-class OutcomeRow:
+class OutcomeRow(NamedTuple):
     index: int
     client_id: str
     outcome: int  # binary 0/1, multiclass: index into the declared classes
@@ -127,16 +128,58 @@ _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 _MICROSECOND = timedelta(microseconds=1)
 
 
+# The form pipelines send: 'Z', upper-case 'T', at most 6 fraction digits, ASCII digits.
+_PLAIN_UTC = re.compile(
+    r"([0-9]{4}-[0-9]{2}-[0-9]{2})T([0-9]{2}):([0-9]{2}):([0-9]{2})(?:\.([0-9]{1,6}))?Z"
+)
+_FRACTION_SCALE = (0, 100_000, 10_000, 1_000, 100, 10, 1)
+_EPOCH_ORDINAL = date(1970, 1, 1).toordinal()
+_MINUTES: dict[tuple[str, str, str], int | None] = {}  # (day, hour, minute) -> its start
+
+
+def _minute_start_us(day: str, hour: str, minute: str) -> int | None:
+    """Microseconds at the start of a valid UTC minute, else None (take the slow path)."""
+    key = (day, hour, minute)
+    start = _MINUTES.get(key, -1)
+    if start != -1:
+        return start
+    try:
+        parsed = date.fromisoformat(day)
+    except ValueError:
+        parsed = None
+    h, m = int(hour), int(minute)
+    # Years at the calendar's edges go the slow way, which words their errors.
+    if parsed is None or parsed.year in (1, 9999) or h > 23 or m > 59:
+        start = None
+    else:
+        start = ((parsed.toordinal() - _EPOCH_ORDINAL) * 1_440 + h * 60 + m) * 60_000_000
+    if len(_MINUTES) >= 4_096:  # bounded: a hostile batch cannot grow it
+        _MINUTES.clear()
+    _MINUTES[key] = start
+    return start
+
+
 def _fast_instant(value: Any) -> int | None:
     """Microseconds of a plainly well-formed RFC 3339 text, or None to take the slow path.
 
     Accepts only what :func:`_instant` accepts, with the same value: anything
     unusual (no match, more than 6 fraction digits, years at the edge of the
     calendar where the conversion to UTC can overflow) goes the slow way, which
-    also words the error.
+    also words the error. The common UTC form is read field by field, each
+    minute once: ingest reads one instant per row.
     """
     if type(value) is not str:
         return None
+    plain = _PLAIN_UTC.fullmatch(value)
+    if plain is not None:
+        day, hour, minute, second, fraction = plain.groups()
+        start = _minute_start_us(day, hour, minute)
+        s = int(second)
+        if start is None or s > 59:  # a leap second goes the slow way (refused there)
+            return None
+        if fraction:
+            return start + s * 1_000_000 + int(fraction) * _FRACTION_SCALE[len(fraction)]
+        return start + s * 1_000_000
     match = _RFC3339.match(value)
     if match is None or len(match.group("frac") or "") > 7:
         return None
