@@ -33,7 +33,7 @@ _BINARY_FIELDS = PREDICTION_FIELDS - {"probabilities"}
 # Rows are named tuples, not frozen dataclasses: building one is 4x cheaper, and
 # ingest builds one per row of every batch.
 class PredictionRow(NamedTuple):
-    index: int  # position in the request, for error details
+    position: int  # index of the row in the request, for error details
     client_id: str
     predicted_at_us: int
     probability: float | None  # binary
@@ -52,7 +52,7 @@ class PredictionRow(NamedTuple):
 
 
 class OutcomeRow(NamedTuple):
-    index: int
+    position: int
     client_id: str
     outcome: int  # binary 0/1, multiclass: index into the declared classes
     observed_at_us: int

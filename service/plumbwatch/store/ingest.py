@@ -127,7 +127,7 @@ def write_predictions(
             conflicts.append(
                 Detail(
                     field="id",
-                    index=row.index,
+                    index=row.position,
                     reason=f"{row.client_id!r} is stored with different content",
                 )
             )
@@ -239,7 +239,7 @@ def write_outcomes(
             conflicts.append(
                 Detail(
                     field="outcome",
-                    index=row.index,
+                    index=row.position,
                     reason=f"{row.client_id!r} has a stored outcome with another value; "
                     "send it with ?correction=true to correct it",
                 )
