@@ -49,3 +49,39 @@ def test_downgrade_to_empty_and_back(engine: Engine) -> None:
     assert not set(metadata.tables) & set(sa.inspect(engine).get_table_names())
     upgrade(engine)
     assert current_revision(engine) == head_revision(engine)
+
+
+def test_row_keys_rekeyed_by_hash_keep_their_rows(empty_engine: Engine) -> None:
+    # 0005 reorders the id-key tables' primary key (hash before kind); stored keys
+    # must come through the rebuild unchanged, in both directions.
+    cfg = alembic_config(empty_engine)
+    rows = [(1, "p", -5, 10), (1, "o", -5, 11), (1, "p", 7, 12), (2, "p", -5, 13)]
+
+    def stored(table: str) -> list[tuple[object, ...]]:
+        with empty_engine.connect() as conn:
+            sql = f"SELECT model_id, kind, id_hash, row_id FROM {table}"
+            return sorted(tuple(r) for r in conn.exec_driver_sql(sql))
+
+    def step(target: str, direction: str = "upgrade") -> None:
+        with empty_engine.begin() as conn:
+            cfg.attributes["connection"] = conn
+            getattr(command, direction)(cfg, target)
+
+    step("0002")
+    with empty_engine.begin() as conn:
+        for table in ("row_keys", "row_keys_recent"):
+            for row in rows:
+                conn.exec_driver_sql(
+                    f"INSERT INTO {table} (model_id, kind, id_hash, row_id) "
+                    f"VALUES ({row[0]}, '{row[1]}', {row[2]}, {row[3]})"
+                )
+    step("0005")
+    for table in ("row_keys", "row_keys_recent"):
+        pk = sa.inspect(empty_engine).get_pk_constraint(table)
+        assert pk["constrained_columns"] == ["model_id", "id_hash", "kind", "row_id"]
+        assert stored(table) == sorted(rows)
+    step("0002", "downgrade")
+    for table in ("row_keys", "row_keys_recent"):
+        pk = sa.inspect(empty_engine).get_pk_constraint(table)
+        assert pk["constrained_columns"] == ["model_id", "kind", "id_hash", "row_id"]
+        assert stored(table) == sorted(rows)

@@ -53,15 +53,22 @@ def placeholder(conn: sa.Connection) -> str:
     return "?" if conn.dialect.name == "sqlite" else "%s"
 
 
-def hash_filter(conn: sa.Connection, hashes: Sequence[int]) -> tuple[str, list[Any]]:
-    """SQL matching ``id_hash`` against hashes, with its parameters.
+def any_of(conn: sa.Connection, column: str, values: Sequence[int]) -> tuple[str, tuple[Any, ...]]:
+    """SQL matching an integer column against values, with its parameters.
 
     Ingest runs this for every row, so it bypasses statement compilation: one
-    array parameter on PostgreSQL, plain markers on SQLite (callers chunk).
+    array parameter on PostgreSQL, plain markers on SQLite (callers chunk). The
+    array goes as its text form: psycopg would adapt a list of ints element by
+    element in Python, which cost more than the lookup itself.
     """
     if conn.dialect.name == "postgresql":
-        return "id_hash = ANY(%s::bigint[])", [list(hashes)]
-    return f"id_hash IN ({','.join('?' * len(hashes))})", list(hashes)
+        return f"{column} = ANY(%s::bigint[])", (array_literal(values),)
+    return f"{column} IN ({','.join('?' * len(values))})", tuple(values)
+
+
+def array_literal(values: Iterable[int]) -> str:
+    """A PostgreSQL array literal of integers, e.g. ``{1,-2,3}``."""
+    return "{" + ",".join(map(str, values)) + "}"
 
 
 def chunked(values: Sequence[int], conn: sa.Connection) -> Iterator[Sequence[int]]:
@@ -72,29 +79,28 @@ def chunked(values: Sequence[int], conn: sa.Connection) -> Iterator[Sequence[int
 
 
 def lookup(
-    conn: sa.Connection, *, model_id: int, kind: str, hashes: Sequence[int]
-) -> dict[int, list[int]]:
-    """Row ids stored under each hash, from both tiers (one statement, one snapshot)."""
-    found: dict[int, list[int]] = defaultdict(list)
+    conn: sa.Connection, *, model_id: int, hashes: Sequence[int]
+) -> dict[int, list[tuple[str, int]]]:
+    """(kind, row id) pairs stored under each hash, from both tiers (one statement, one
+    snapshot). Keys are ordered hash before kind, so one probe finds both kinds."""
+    found: dict[int, list[tuple[str, int]]] = defaultdict(list)
     mark = placeholder(conn)
     for chunk in chunked(sorted(set(hashes)), conn):
-        where, params = hash_filter(conn, chunk)
+        where, params = any_of(conn, "id_hash", chunk)
         sql = " UNION ALL ".join(
-            f"SELECT id_hash, row_id FROM {table} WHERE model_id = {mark} AND kind = {mark} "
-            f"AND {where}"
+            f"SELECT id_hash, kind, row_id FROM {table} WHERE model_id = {mark} AND {where}"
             for table in (row_keys.name, row_keys_recent.name)
         )
-        args = (model_id, kind, *params, model_id, kind, *params)
-        for h, row_id in conn.exec_driver_sql(sql, args):
-            found[h].append(row_id)
+        for h, kind, row_id in conn.exec_driver_sql(sql, (model_id, *params, model_id, *params)):
+            found[h].append((kind, row_id))
     return found
 
 
 def add(conn: sa.Connection, *, model_id: int, kind: str, pairs: Iterable[tuple[int, int]]) -> int:
     """Record (hash, row id) pairs in the recent tier; returns how many."""
-    rows = sorted((model_id, kind, h, row_id) for h, row_id in pairs)  # key order: fewer pages
+    rows = sorted((model_id, h, kind, row_id) for h, row_id in pairs)  # key order: fewer pages
     if rows:
-        insert_rows(conn, row_keys_recent.name, ("model_id", "kind", "id_hash", "row_id"), rows)
+        insert_rows(conn, row_keys_recent.name, ("model_id", "id_hash", "kind", "row_id"), rows)
     return len(rows)
 
 
@@ -131,21 +137,21 @@ def recent_count(conn: sa.Connection) -> int:
 
 def settle(conn: sa.Connection) -> int:
     """Move the recent tier into the settled one, in key order. Returns rows moved."""
-    columns = "model_id, kind, id_hash, row_id"
+    columns = "model_id, id_hash, kind, row_id"  # the primary key's order
     if conn.dialect.name == "postgresql":
         # One statement: rows another server adds meanwhile stay in the recent tier.
         result = conn.execute(
             sa.text(
                 f"WITH moved AS (DELETE FROM row_keys_recent RETURNING {columns}) "
                 f"INSERT INTO row_keys ({columns}) SELECT {columns} FROM moved "
-                "ORDER BY model_id, kind, id_hash, row_id"
+                f"ORDER BY {columns}"
             )
         )
         return int(result.rowcount or 0)
     moved = conn.execute(
         sa.text(
             f"INSERT INTO row_keys ({columns}) SELECT {columns} FROM row_keys_recent "
-            "ORDER BY model_id, kind, id_hash, row_id"
+            f"ORDER BY {columns}"
         )
     ).rowcount
     conn.execute(sa.text("DELETE FROM row_keys_recent"))
@@ -161,10 +167,12 @@ def allocate_ids(conn: sa.Connection, table: sa.Table, n: int) -> list[int]:
     if n == 0:
         return []
     if conn.dialect.name == "postgresql":
-        rows = conn.execute(
-            sa.text("SELECT nextval(pg_get_serial_sequence(:t, 'id')) FROM generate_series(1, :n)"),
-            {"t": table.name, "n": n},
-        )
-        return [r[0] for r in rows]
-    first = conn.execute(sa.select(sa.func.coalesce(sa.func.max(table.c.id), 0) + 1)).scalar_one()
+        # One row holding an array: a thousand result rows cost more than the nextvals.
+        ids = conn.exec_driver_sql(
+            "SELECT array_agg(nextval(pg_get_serial_sequence(%s, 'id'))) "
+            "FROM generate_series(1, %s)",
+            (table.name, n),
+        ).scalar_one()
+        return sorted(ids)
+    first = conn.exec_driver_sql(f"SELECT coalesce(max(id), 0) + 1 FROM {table.name}").scalar_one()
     return list(range(int(first), int(first) + n))

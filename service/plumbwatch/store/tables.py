@@ -91,10 +91,12 @@ def _key_table(name: str) -> sa.Table:
     return sa.Table(
         name,
         metadata,
-        sa.Column("model_id", sa.Integer, primary_key=True),
-        sa.Column("kind", sa.String(1), primary_key=True),  # 'p' prediction, 'o' outcome
-        sa.Column("id_hash", sa.BigInteger, primary_key=True),
-        sa.Column("row_id", sa.BigInteger, primary_key=True),
+        sa.Column("model_id", sa.Integer, nullable=False),
+        sa.Column("kind", sa.String(1), nullable=False),  # 'p' prediction, 'o' outcome
+        sa.Column("id_hash", sa.BigInteger, nullable=False),
+        sa.Column("row_id", sa.BigInteger, nullable=False),
+        # Hash before kind: one probe finds an id's prediction and outcome (0005).
+        sa.PrimaryKeyConstraint("model_id", "id_hash", "kind", "row_id"),
         sqlite_with_rowid=False,
     )
 
