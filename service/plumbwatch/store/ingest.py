@@ -7,8 +7,10 @@ each batch in a savepoint, so a raise leaves no trace).
 
 from __future__ import annotations
 
+from collections import namedtuple
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Any
 
 import sqlalchemy as sa
@@ -75,20 +77,37 @@ def _fetch(
     *,
     row_ids: Sequence[int],
     client_ids: set[str],
-) -> dict[str, sa.Row[Any]]:
-    """Rows by primary key, kept by client id when it is one of client_ids.
+) -> dict[str, Any]:
+    """Rows by primary key (with attributes ``id``, ``client_id`` and ``columns``), by
+    client id, for the client ids asked.
 
-    A hash only narrows the search: comparing the stored id text here is what keeps
+    A hash only narrows the search: keying by the stored id text here is what keeps
     two different ids that share a hash apart. Plain SQL, as for the key lookup.
     """
-    found: dict[str, sa.Row[Any]] = {}
-    select = ", ".join(("id", "client_id", *columns))
+    found: dict[str, Any] = {}
+    if not row_ids:
+        return found
+    names = ("id", "client_id", *columns)
+    stored = _stored_row(names)
+    exact = not any(isinstance(table.c[c].type, sa.Float) for c in columns)
     for chunk in keys.chunked(sorted(set(row_ids)), conn):
         where, params = keys.any_of(conn, "id", chunk)
-        for row in conn.exec_driver_sql(f"SELECT {select} FROM {table.name} WHERE {where}", params):
+        sql = f"SELECT {', '.join(names)} FROM {table.name} WHERE {where}"
+        rows = (
+            keys.select_exact(conn, names, sql, params)
+            if exact
+            else conn.exec_driver_sql(sql, params)
+        )
+        for values in rows:
+            row = stored._make(values)
             if row.client_id in client_ids:
                 found[row.client_id] = row
     return found
+
+
+@lru_cache(maxsize=16)
+def _stored_row(names: tuple[str, ...]) -> Any:
+    return namedtuple("StoredRow", names)
 
 
 def write_predictions(
@@ -212,7 +231,7 @@ def write_outcomes(
     )
     conflicts: list[Detail] = []
     new: list[tuple[OutcomeRow, int]] = []
-    changed: list[tuple[OutcomeRow, sa.Row[Any]]] = []
+    changed: list[tuple[OutcomeRow, Any]] = []
     duplicates = awaiting = 0
     for row, h in zip(rows, hashes, strict=True):
         old = stored.get(row.client_id)
@@ -283,7 +302,7 @@ def write_outcomes(
 
 
 def _apply_corrections(
-    conn: sa.Connection, changed: Sequence[tuple[OutcomeRow, sa.Row[Any]]], *, now_us: int
+    conn: sa.Connection, changed: Sequence[tuple[OutcomeRow, Any]], *, now_us: int
 ) -> None:
     """Keep each superseded value with its times, then store the correction."""
     conn.execute(

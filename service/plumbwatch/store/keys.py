@@ -22,6 +22,7 @@ from collections.abc import Iterable, Iterator, Sequence
 from itertools import chain
 from typing import Any
 
+import orjson
 import sqlalchemy as sa
 
 from plumbwatch.store.tables import row_keys, row_keys_recent
@@ -78,6 +79,26 @@ def chunked(values: Sequence[int], conn: sa.Connection) -> Iterator[Sequence[int
         yield values[start : start + LOOKUP_CHUNK]
 
 
+def select_exact(
+    conn: sa.Connection, columns: Sequence[str], source: str, params: Sequence[Any]
+) -> list[Sequence[Any]]:
+    """The rows of ``source`` (a SELECT of ``columns``): integer and text columns only.
+
+    On SQLite the rows come back as one JSON array: the sqlite3 module steps once
+    per result row and gives up the GIL around each step, so a thousand-row result
+    meant a thousand waits for the GIL while request threads parse JSON. Floats
+    must not come this way (SQLite's JSON writes 15 significant digits).
+    """
+    if conn.dialect.name != "sqlite":
+        return list(conn.exec_driver_sql(source, tuple(params)))
+    names = ", ".join(columns)
+    packed = conn.exec_driver_sql(
+        f"SELECT json_group_array(json_array({names})) FROM ({source})", tuple(params)
+    ).scalar_one()
+    rows: list[Sequence[Any]] = orjson.loads(packed)
+    return rows
+
+
 def lookup(
     conn: sa.Connection, *, model_id: int, hashes: Sequence[int]
 ) -> dict[int, list[tuple[str, int]]]:
@@ -91,7 +112,8 @@ def lookup(
             f"SELECT id_hash, kind, row_id FROM {table} WHERE model_id = {mark} AND {where}"
             for table in (row_keys.name, row_keys_recent.name)
         )
-        for h, kind, row_id in conn.exec_driver_sql(sql, (model_id, *params, model_id, *params)):
+        columns = ("id_hash", "kind", "row_id")
+        for h, kind, row_id in select_exact(conn, columns, sql, (model_id, *params) * 2):
             found[h].append((kind, row_id))
     return found
 
