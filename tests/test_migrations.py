@@ -51,37 +51,77 @@ def test_downgrade_to_empty_and_back(engine: Engine) -> None:
     assert current_revision(engine) == head_revision(engine)
 
 
-def test_row_keys_rekeyed_by_hash_keep_their_rows(empty_engine: Engine) -> None:
-    # 0005 reorders the id-key tables' primary key (hash before kind); stored keys
-    # must come through the rebuild unchanged, in both directions.
+def test_ingest_layout_keeps_rows_both_ways(empty_engine: Engine) -> None:
+    # 0005 reorders the id-key tables' primary key (hash before kind) and drops the
+    # raw rows' foreign keys; stored rows must come through unchanged, both ways.
     cfg = alembic_config(empty_engine)
-    rows = [(1, "p", -5, 10), (1, "o", -5, 11), (1, "p", 7, 12), (2, "p", -5, 13)]
-
-    def stored(table: str) -> list[tuple[object, ...]]:
-        with empty_engine.connect() as conn:
-            sql = f"SELECT model_id, kind, id_hash, row_id FROM {table}"
-            return sorted(tuple(r) for r in conn.exec_driver_sql(sql))
+    keys = [(1, "p", -5, 10), (1, "o", -5, 11), (1, "p", 7, 12), (2, "p", -5, 13)]
 
     def step(target: str, direction: str = "upgrade") -> None:
         with empty_engine.begin() as conn:
             cfg.attributes["connection"] = conn
             getattr(command, direction)(cfg, target)
 
+    def rows(sql: str) -> list[tuple[object, ...]]:
+        with empty_engine.connect() as conn:
+            return sorted(tuple(r) for r in conn.exec_driver_sql(sql))
+
+    def foreign_keys(table: str) -> set[str]:
+        return {fk["name"] for fk in sa.inspect(empty_engine).get_foreign_keys(table)}
+
+    def snapshot() -> list[list[tuple[object, ...]]]:
+        return [
+            rows(f"SELECT model_id, kind, id_hash, row_id FROM {t}")
+            for t in ("row_keys", "row_keys_recent")
+        ] + [
+            rows("SELECT id, model_id, client_id, probability FROM predictions"),
+            rows("SELECT id, model_id, client_id, prediction_id, outcome FROM outcomes"),
+        ]
+
     step("0002")
     with empty_engine.begin() as conn:
+        conn.exec_driver_sql(
+            "INSERT INTO monitored_models (id, name, kind, label_horizon, label_horizon_s, "
+            "missing_outcome, segment_keys, crosses, windows, created_at_us, updated_at_us) "
+            "VALUES (1, 'm', 'binary', 'P5D', 432000, 'wait', '[]', '[]', '[]', 0, 0)"
+        )
+        conn.exec_driver_sql(
+            "INSERT INTO predictions (id, model_id, client_id, predicted_at_us, probability, "
+            "version, received_at_us) VALUES (10, 1, 'a', 0, 0.1, 'v', 0)"
+        )
+        conn.exec_driver_sql(
+            "INSERT INTO outcomes (id, model_id, client_id, prediction_id, outcome, "
+            "observed_at_us, received_at_us) VALUES (11, 1, 'a', 10, 1, 0, 0)"
+        )
         for table in ("row_keys", "row_keys_recent"):
-            for row in rows:
+            for k in keys:
                 conn.exec_driver_sql(
                     f"INSERT INTO {table} (model_id, kind, id_hash, row_id) "
-                    f"VALUES ({row[0]}, '{row[1]}', {row[2]}, {row[3]})"
+                    f"VALUES ({k[0]}, '{k[1]}', {k[2]}, {k[3]})"
                 )
+    before = snapshot()
+    assert foreign_keys("outcomes") == {
+        "fk_outcomes_model_id_monitored_models",
+        "fk_outcomes_prediction_id_predictions",
+    }
+
     step("0005")
+    assert snapshot() == before
     for table in ("row_keys", "row_keys_recent"):
         pk = sa.inspect(empty_engine).get_pk_constraint(table)
         assert pk["constrained_columns"] == ["model_id", "id_hash", "kind", "row_id"]
-        assert stored(table) == sorted(rows)
+    assert foreign_keys("predictions") == foreign_keys("outcomes") == set()
+    assert foreign_keys("outcome_revisions") == {"fk_outcome_revisions_outcome_id_outcomes"}
+    if empty_engine.dialect.name == "sqlite":
+        assert rows("PRAGMA integrity_check") == [("ok",)]
+
     step("0002", "downgrade")
+    assert snapshot() == before
+    assert foreign_keys("predictions") == {"fk_predictions_model_id_monitored_models"}
+    assert len(foreign_keys("outcomes")) == 2
     for table in ("row_keys", "row_keys_recent"):
         pk = sa.inspect(empty_engine).get_pk_constraint(table)
         assert pk["constrained_columns"] == ["model_id", "kind", "id_hash", "row_id"]
-        assert stored(table) == sorted(rows)
+    if empty_engine.dialect.name == "sqlite":
+        assert rows("PRAGMA integrity_check") == [("ok",)]
+        assert rows("PRAGMA foreign_key_check") == []
