@@ -18,7 +18,8 @@ from plumbwatch.store import keys
 from plumbwatch.store import models as store_models
 from plumbwatch.store.engine import BEGIN_OPTION
 from plumbwatch.store.ingest import write_outcomes, write_predictions
-from plumbwatch.store.tables import outcomes, predictions
+from plumbwatch.store.tables import outcomes, predictions, row_keys, row_keys_recent
+from plumbwatch.store.writer import GroupWriter
 from plumbwatch.validation import OutcomeRow, PredictionRow
 from tests.factories import NOW_US
 
@@ -133,3 +134,38 @@ def test_select_exact_round_trips_integers_and_text(engine: Engine) -> None:
             )
         rows = keys.select_exact(conn, ("n", "t"), source, params)
     assert [tuple(r) for r in rows] == values
+
+
+def test_keys_in_the_recent_tier_are_found_and_settled(engine: Engine) -> None:
+    # SQLite writes new keys to the recent tier; PostgreSQL straight to the settled
+    # one, but keys an older version left in the recent tier must still be found,
+    # and the group writer moves them.
+    model_id = _model(engine)
+    _in_write(
+        engine,
+        lambda c: write_predictions(c, model_id=model_id, rows=_predictions(["a"]), now_us=NOW_US),
+    )
+    with engine.begin() as conn:  # put the key where an older version would have
+        row_id = conn.execute(sa.select(predictions.c.id)).scalar_one()
+        conn.execute(sa.delete(row_keys))
+        conn.execute(sa.delete(row_keys_recent))
+        conn.execute(
+            sa.insert(row_keys_recent).values(
+                model_id=model_id, kind="p", id_hash=keys.id_hash("a"), row_id=row_id
+            )
+        )
+    again = _in_write(
+        engine,
+        lambda c: write_predictions(c, model_id=model_id, rows=_predictions(["a"]), now_us=NOW_US),
+    )
+    assert (again.accepted, again.duplicates) == (0, 1)  # type: ignore[attr-defined]
+
+    writer = GroupWriter(engine, settle_threshold=1)
+    writer.start()
+    try:
+        writer.submit(lambda c: None, rows=0).result(timeout=30)
+    finally:
+        writer.stop()
+    with engine.connect() as conn:
+        assert conn.execute(sa.select(row_keys_recent.c.row_id)).all() == []
+        assert conn.execute(sa.select(row_keys.c.row_id)).all() == [(row_id,)]

@@ -8,10 +8,19 @@ pages a commit dirties are few; from time to time :func:`settle` moves the
 recent tier into ``row_keys`` in hash order, touching each settled page about
 once per move instead of once per row.
 
-A hash only narrows the search: callers always compare the stored id text, so a
-collision can never merge two different ids. Uniqueness comes from the writer:
-check and insert run inside one write transaction (SQLite's write lock; on
-PostgreSQL a per-model advisory lock, see :func:`lock_model`).
+PostgreSQL logs row changes, not whole pages, at each commit, so there the
+recent tier buys nothing and costs a second probe per id, a DELETE per moved
+key (dead rows the lookups wade through until vacuum) and, worse, plans made on
+the statistics of a table that swings between empty and full: keys go straight
+into ``row_keys``. Lookups still read both tiers, so keys left in the recent tier
+by an older version are found (and the writer settles them).
+
+Keys are ordered (model, hash, kind, row): one probe finds whether an id is
+stored as a prediction, an outcome or both. A hash only narrows the search:
+callers always compare the stored id text, so a collision can never merge two
+different ids. Uniqueness comes from the writer: check and insert run inside one
+write transaction (SQLite's write lock; on PostgreSQL a per-model advisory lock,
+see :func:`lock_model`).
 """
 
 from __future__ import annotations
@@ -118,11 +127,17 @@ def lookup(
     return found
 
 
+def uses_recent_tier(dialect: str) -> bool:
+    """Whether new keys go to the recent tier (SQLite) or straight to the settled one."""
+    return dialect != "postgresql"
+
+
 def add(conn: sa.Connection, *, model_id: int, kind: str, pairs: Iterable[tuple[int, int]]) -> int:
-    """Record (hash, row id) pairs in the recent tier; returns how many."""
+    """Record (hash, row id) pairs (SQLite: in the recent tier); returns how many."""
     rows = sorted((model_id, h, kind, row_id) for h, row_id in pairs)  # key order: fewer pages
     if rows:
-        insert_rows(conn, row_keys_recent.name, ("model_id", "id_hash", "kind", "row_id"), rows)
+        table = row_keys_recent if uses_recent_tier(conn.dialect.name) else row_keys
+        insert_rows(conn, table.name, ("model_id", "id_hash", "kind", "row_id"), rows)
     return len(rows)
 
 

@@ -174,9 +174,8 @@ class GroupWriter:
                     job.future.set_result(value)
                 else:
                     job.future.set_exception(error)
-            self._recent_keys = (self._recent_keys or 0) + sum(
-                job.rows for job, _, error in results if error is None
-            )
+            if self._recent_keys is not None and keys.uses_recent_tier(self._engine.dialect.name):
+                self._recent_keys += sum(job.rows for job, _, error in results if error is None)
             return
 
     @staticmethod
@@ -188,14 +187,15 @@ class GroupWriter:
     def _maybe_settle(self) -> None:
         """Move the recent key tier into the settled one once it has grown."""
         try:
+            conn = self._connection()
             if self._recent_keys is None or self._commits % 100 == 0:
-                conn = self._connection()
                 with conn.begin():
                     self._recent_keys = keys.recent_count(conn)
-            if self._recent_keys < self._settle_threshold:
+            # PostgreSQL writes no recent tier: whatever is there is an older version's.
+            threshold = self._settle_threshold if keys.uses_recent_tier(conn.dialect.name) else 1
+            if self._recent_keys < threshold:
                 return
             started = time.perf_counter()
-            conn = self._connection()
             with conn.begin():
                 moved = keys.settle(conn)
         except sa.exc.OperationalError as exc:
