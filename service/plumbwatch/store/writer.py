@@ -198,9 +198,11 @@ class GroupWriter:
             started = time.perf_counter()
             with conn.begin():
                 moved = keys.settle(conn)
-        except sa.exc.OperationalError as exc:
+        except sa.exc.SQLAlchemyError as exc:
+            # Ingest goes on without settling (lookups read both tiers); a dead writer
+            # thread would leave every later request waiting.
             self._drop_connection()
-            log.warning("settling row keys failed, will retry later: %s", exc.orig)
+            log.warning("settling row keys failed, will retry later: %s", exc)
             return
         self._recent_keys = 0
         log.info("settled %d row keys in %.2f s", moved, time.perf_counter() - started)
