@@ -7,7 +7,8 @@ Create Date: 2026-12-02
 1. The id-key tables were keyed (model_id, kind, id_hash, row_id): finding whether a
    client id is stored as a prediction and as an outcome took two index probes per
    tier. Keyed (model_id, id_hash, kind, row_id), one probe finds both, which halves
-   the index work of every ingested row (see plumbwatch.store.keys).
+   the index work of every ingested row (see plumbwatch.store.keys). On PostgreSQL
+   the recent tier is moved into the settled one: it is no longer used there.
 2. predictions.model_id, outcomes.model_id and outcomes.prediction_id lose their
    foreign keys. The group writer is the only code that writes these columns, from
    rows it has just read inside the model's write lock, and models are archived,
@@ -113,6 +114,14 @@ def _with(keys: list[tuple[str, str, str]]) -> Callable[[str], str]:
 def upgrade() -> None:
     for table in _KEY_TABLES:
         _rekey(table, _NEW_KEY)
+    if not _sqlite():
+        # PostgreSQL reads and writes only the settled tier from now on (store/keys.py).
+        columns = ", ".join(_NEW_KEY)
+        op.execute(
+            f"INSERT INTO row_keys ({columns}) SELECT {columns} FROM row_keys_recent "
+            f"ORDER BY {columns}"
+        )
+        op.execute("DELETE FROM row_keys_recent")
     if _sqlite():
         tables = sorted({t for t, *_ in _FOREIGN_KEYS})
         _sqlite_table_sql(

@@ -174,7 +174,7 @@ class GroupWriter:
                     job.future.set_result(value)
                 else:
                     job.future.set_exception(error)
-            if self._recent_keys is not None and keys.uses_recent_tier(self._engine.dialect.name):
+            if self._recent_keys is not None:
                 self._recent_keys += sum(job.rows for job, _, error in results if error is None)
             return
 
@@ -186,14 +186,14 @@ class GroupWriter:
 
     def _maybe_settle(self) -> None:
         """Move the recent key tier into the settled one once it has grown."""
+        if not keys.uses_recent_tier(self._engine.dialect.name):
+            return
         try:
             conn = self._connection()
             if self._recent_keys is None or self._commits % 100 == 0:
                 with conn.begin():
                     self._recent_keys = keys.recent_count(conn)
-            # PostgreSQL writes no recent tier: whatever is there is an older version's.
-            threshold = self._settle_threshold if keys.uses_recent_tier(conn.dialect.name) else 1
-            if self._recent_keys < threshold:
+            if self._recent_keys < self._settle_threshold:
                 return
             started = time.perf_counter()
             with conn.begin():
