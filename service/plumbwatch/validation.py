@@ -231,7 +231,8 @@ def _fast_binary_prediction(
     Most rows of real batches are valid, so this path checks them with as few
     calls as possible; any doubt goes to the full checks, which word the errors.
     """
-    if type(item) is not dict or not item.keys() <= _BINARY_FIELDS:
+    # issuperset walks the keys without building a keys view (one allocation per row).
+    if type(item) is not dict or not _BINARY_FIELDS.issuperset(item):
         return None
     client_id = item.get("id")
     if type(client_id) is not str or not 0 < len(client_id) <= MAX_ID_LENGTH:
