@@ -17,6 +17,13 @@ holding N rows, in 1,000-row transactions: sqlite3 ``executemany`` into a table
 with a UNIQUE (model, client id) index (WAL, synchronous=FULL), or psycopg COPY
 into a table with the same unique index. Peak server RSS is VmHWM from
 ``/proc/<pid>/status``. This is a report, not a test: it asserts nothing.
+
+Request bodies are JSON-encoded before the clock starts, as a pipeline can encode
+the next batch while one is in flight; on this 2-core machine the clients' own
+encoding would otherwise compete with the server for CPU. CPU seconds of the server
+process (all threads, ``/proc/<pid>/stat``) and of the client threads are reported
+per 1,000 rows, with the load average before and after: other work on a shared
+machine lowers the absolute rates, the ratio to the bare driver less so.
 """
 
 from __future__ import annotations
