@@ -15,9 +15,11 @@ from hypothesis import strategies as st
 from plumbwatch.timefmt import parse_instant, to_micros
 from plumbwatch.validation import (
     ModelShape,
+    _checked_outcome,
     _checked_prediction,
     _fast_binary_prediction,
     _fast_instant,
+    _fast_outcome,
     _Problems,
     _SegmentCache,
 )
@@ -112,4 +114,28 @@ def test_fast_row_matches_the_full_checks(item: dict[str, Any]) -> None:
     if fast is not None:
         problems = _Problems()
         assert _checked_prediction(problems, 0, item, SHAPE, LATEST_US, 1e-6) == fast
+        assert problems.details == []
+
+
+outcome_rows = st.fixed_dictionaries(
+    {"id": st.one_of(st.text(max_size=3), st.integers(), st.just("x" * 201))},
+    optional={
+        "outcome": st.one_of(values, st.sampled_from(["late", "on_time", "lost", "Late"])),
+        "observed_at": st.one_of(timestamps, st.just("2026-06-01T12:00:00Z"), values),
+        "colour": values,
+    },
+)
+
+
+@settings(max_examples=1_000, deadline=None, database=None)
+@given(outcome_rows, st.sampled_from(["binary", "multiclass"]))
+def test_fast_outcome_matches_the_full_checks(item: dict[str, Any], kind: str) -> None:
+    classes = ("on_time", "late") if kind == "multiclass" else ()
+    shape = ModelShape(kind=kind, classes=classes, segment_keys=frozenset())
+    index = {c: k for k, c in enumerate(classes)}
+    now_us = LATEST_US - 3_600_000_000
+    fast = _fast_outcome(0, item, kind == "binary", index, now_us, LATEST_US)
+    if fast is not None:
+        problems = _Problems()
+        assert _checked_outcome(problems, 0, item, shape, index, now_us, LATEST_US) == fast
         assert problems.details == []
