@@ -164,3 +164,13 @@ def test_keys_in_the_recent_tier_are_found_and_settled(engine: Engine) -> None:
     with engine.connect() as conn:
         assert conn.execute(sa.select(row_keys_recent.c.row_id)).all() == []
         assert conn.execute(sa.select(row_keys.c.row_id)).all() == [(row_id,)]
+
+
+def test_id_hashes_match_id_hash() -> None:
+    ids = ["", "a", "6513270e-269e-4d37-b2a7-4de452e6b438", "zürich ✓", "x" * 200]
+    assert keys.id_hashes(ids) == [keys.id_hash(i) for i in ids]
+    # The stored hash is the first 8 bytes of BLAKE2b-64 as a signed big-endian integer.
+    import hashlib
+
+    digest = hashlib.blake2b(b"a", digest_size=8).digest()
+    assert keys.id_hash("a") == int.from_bytes(digest, "big", signed=True)

@@ -31,6 +31,8 @@ _PREDICTION_COLUMNS = (
     "segments",
     "received_at_us",
 )
+# write_predictions builds each new row as (id, model_id, *row[1:], received_at_us).
+assert PredictionRow._fields[1:] == _PREDICTION_COLUMNS[2:-1]
 _OUTCOME_COLUMNS = (
     "id",
     "model_id",
@@ -111,10 +113,18 @@ def _stored_row(names: tuple[str, ...]) -> Any:
 
 
 def write_predictions(
-    conn: sa.Connection, *, model_id: int, rows: Sequence[PredictionRow], now_us: int
+    conn: sa.Connection,
+    *,
+    model_id: int,
+    rows: Sequence[PredictionRow],
+    now_us: int,
+    hashes: Sequence[int] | None = None,
 ) -> PredictionsWritten:
+    """``hashes``: ``keys.id_hashes`` of the rows' client ids, if the caller has them
+    (the API computes them before queueing, off the single writer thread)."""
     keys.lock_model(conn, model_id)
-    hashes = [keys.id_hash(r.client_id) for r in rows]
+    if hashes is None:
+        hashes = keys.id_hashes(r.client_id for r in rows)
     found = _Keys(conn, model_id=model_id, hashes=hashes)
     stored = _fetch(
         conn,
@@ -157,20 +167,8 @@ def write_predictions(
             conn,
             predictions.name,
             _PREDICTION_COLUMNS,
-            [
-                (
-                    rid,
-                    model_id,
-                    r.client_id,
-                    r.predicted_at_us,
-                    r.probability,
-                    r.probabilities,
-                    r.version,
-                    r.segments,
-                    now_us,
-                )
-                for rid, (r, _) in zip(ids, new, strict=True)
-            ],
+            # A row's fields after its position are the stored columns, in order.
+            [(rid, model_id, *r[1:], now_us) for rid, (r, _) in zip(ids, new, strict=True)],
         )
         keys.add(
             conn,
@@ -218,9 +216,11 @@ def write_outcomes(
     rows: Sequence[OutcomeRow],
     now_us: int,
     correction: bool,
+    hashes: Sequence[int] | None = None,
 ) -> OutcomesWritten:
     keys.lock_model(conn, model_id)
-    hashes = [keys.id_hash(r.client_id) for r in rows]
+    if hashes is None:
+        hashes = keys.id_hashes(r.client_id for r in rows)
     found = _Keys(conn, model_id=model_id, hashes=hashes)
     stored = _fetch(
         conn,
