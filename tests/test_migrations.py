@@ -49,3 +49,88 @@ def test_downgrade_to_empty_and_back(engine: Engine) -> None:
     assert not set(metadata.tables) & set(sa.inspect(engine).get_table_names())
     upgrade(engine)
     assert current_revision(engine) == head_revision(engine)
+
+
+def test_ingest_layout_keeps_rows_both_ways(empty_engine: Engine) -> None:
+    # 0005 reorders the id-key tables' primary key (hash before kind) and drops the
+    # raw rows' foreign keys; stored rows must come through unchanged, both ways.
+    cfg = alembic_config(empty_engine)
+    keys = {
+        "row_keys": [(1, "p", -5, 10), (1, "o", -5, 11), (1, "p", 7, 12), (2, "p", -5, 13)],
+        "row_keys_recent": [(1, "p", 9, 14), (1, "o", 9, 15)],
+    }
+
+    def step(target: str, direction: str = "upgrade") -> None:
+        with empty_engine.begin() as conn:
+            cfg.attributes["connection"] = conn
+            getattr(command, direction)(cfg, target)
+
+    def rows(sql: str) -> list[tuple[object, ...]]:
+        with empty_engine.connect() as conn:
+            return sorted(tuple(r) for r in conn.exec_driver_sql(sql))
+
+    def foreign_keys(table: str) -> set[str]:
+        return {fk["name"] for fk in sa.inspect(empty_engine).get_foreign_keys(table)}
+
+    def snapshot() -> list[list[tuple[object, ...]]]:
+        # Keys of both tiers together: on PostgreSQL 0005 moves the recent tier's keys.
+        return [
+            rows(
+                "SELECT model_id, kind, id_hash, row_id FROM row_keys UNION ALL "
+                "SELECT model_id, kind, id_hash, row_id FROM row_keys_recent"
+            ),
+            rows("SELECT id, model_id, client_id, probability FROM predictions"),
+            rows("SELECT id, model_id, client_id, prediction_id, outcome FROM outcomes"),
+        ]
+
+    step("0002")
+    with empty_engine.begin() as conn:
+        conn.exec_driver_sql(
+            "INSERT INTO monitored_models (id, name, kind, label_horizon, label_horizon_s, "
+            "missing_outcome, segment_keys, crosses, windows, created_at_us, updated_at_us) "
+            "VALUES (1, 'm', 'binary', 'P5D', 432000, 'wait', '[]', '[]', '[]', 0, 0)"
+        )
+        conn.exec_driver_sql(
+            "INSERT INTO predictions (id, model_id, client_id, predicted_at_us, probability, "
+            "version, received_at_us) VALUES (10, 1, 'a', 0, 0.1, 'v', 0)"
+        )
+        conn.exec_driver_sql(
+            "INSERT INTO outcomes (id, model_id, client_id, prediction_id, outcome, "
+            "observed_at_us, received_at_us) VALUES (11, 1, 'a', 10, 1, 0, 0)"
+        )
+        for table, rows_of_table in keys.items():
+            for k in rows_of_table:
+                conn.exec_driver_sql(
+                    f"INSERT INTO {table} (model_id, kind, id_hash, row_id) "
+                    f"VALUES ({k[0]}, '{k[1]}', {k[2]}, {k[3]})"
+                )
+    before = snapshot()
+    assert foreign_keys("outcomes") == {
+        "fk_outcomes_model_id_monitored_models",
+        "fk_outcomes_prediction_id_predictions",
+    }
+
+    step("0005")
+    assert snapshot() == before
+    for table in ("row_keys", "row_keys_recent"):
+        pk = sa.inspect(empty_engine).get_pk_constraint(table)
+        assert pk["constrained_columns"] == ["model_id", "id_hash", "kind", "row_id"]
+    assert foreign_keys("predictions") == foreign_keys("outcomes") == set()
+    recent = rows("SELECT model_id, kind, id_hash, row_id FROM row_keys_recent")
+    assert recent == (
+        [] if empty_engine.dialect.name == "postgresql" else sorted(keys["row_keys_recent"])
+    )
+    assert foreign_keys("outcome_revisions") == {"fk_outcome_revisions_outcome_id_outcomes"}
+    if empty_engine.dialect.name == "sqlite":
+        assert rows("PRAGMA integrity_check") == [("ok",)]
+
+    step("0002", "downgrade")
+    assert snapshot() == before
+    assert foreign_keys("predictions") == {"fk_predictions_model_id_monitored_models"}
+    assert len(foreign_keys("outcomes")) == 2
+    for table in ("row_keys", "row_keys_recent"):
+        pk = sa.inspect(empty_engine).get_pk_constraint(table)
+        assert pk["constrained_columns"] == ["model_id", "kind", "id_hash", "row_id"]
+    if empty_engine.dialect.name == "sqlite":
+        assert rows("PRAGMA integrity_check") == [("ok",)]
+        assert rows("PRAGMA foreign_key_check") == []

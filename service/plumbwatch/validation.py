@@ -10,13 +10,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
-from typing import Any
+from typing import Any, NamedTuple
 
 import orjson
 
 from plumbwatch.errors import Detail, InvalidInput
-from plumbwatch.timefmt import _RFC3339, parse_instant, to_micros
+from plumbwatch.timefmt import fast_micros as _fast_instant
+from plumbwatch.timefmt import parse_instant, to_micros
 
 MAX_ID_LENGTH = 200
 MAX_SEGMENT_VALUE_LENGTH = 200
@@ -29,9 +29,10 @@ OUTCOME_FIELDS = frozenset({"id", "outcome", "observed_at"})
 _BINARY_FIELDS = PREDICTION_FIELDS - {"probabilities"}
 
 
-@dataclass(frozen=True, slots=True)
-class PredictionRow:
-    index: int  # position in the request, for error details
+# Rows are named tuples, not frozen dataclasses: building one is 4x cheaper, and
+# ingest builds one per row of every batch.
+class PredictionRow(NamedTuple):
+    position: int  # index of the row in the request, for error details
     client_id: str
     predicted_at_us: int
     probability: float | None  # binary
@@ -49,9 +50,8 @@ class PredictionRow:
         )
 
 
-@dataclass(frozen=True, slots=True)
-class OutcomeRow:
-    index: int
+class OutcomeRow(NamedTuple):
+    position: int
     client_id: str
     outcome: int  # binary 0/1, multiclass: index into the declared classes
     observed_at_us: int
@@ -123,33 +123,6 @@ def _probability(value: Any) -> float | None:
     return p + 0.0  # -0.0 -> 0.0, so equal values store equal text
 
 
-_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
-_MICROSECOND = timedelta(microseconds=1)
-
-
-def _fast_instant(value: Any) -> int | None:
-    """Microseconds of a plainly well-formed RFC 3339 text, or None to take the slow path.
-
-    Accepts only what :func:`_instant` accepts, with the same value: anything
-    unusual (no match, more than 6 fraction digits, years at the edge of the
-    calendar where the conversion to UTC can overflow) goes the slow way, which
-    also words the error.
-    """
-    if type(value) is not str:
-        return None
-    match = _RFC3339.match(value)
-    if match is None or len(match.group("frac") or "") > 7:
-        return None
-    text = value[:-1] + "+00:00" if value[-1] in "zZ" else value
-    try:
-        parsed = datetime.fromisoformat(text)
-    except ValueError:
-        return None
-    if parsed.year in (1, 9999):
-        return None
-    return (parsed - _EPOCH) // _MICROSECOND
-
-
 class _SegmentCache:
     """Canonical JSON of segment maps already seen in this batch (few distinct maps)."""
 
@@ -188,7 +161,8 @@ def _fast_binary_prediction(
     Most rows of real batches are valid, so this path checks them with as few
     calls as possible; any doubt goes to the full checks, which word the errors.
     """
-    if type(item) is not dict or not item.keys() <= _BINARY_FIELDS:
+    # issuperset walks the keys without building a keys view (one allocation per row).
+    if type(item) is not dict or not _BINARY_FIELDS.issuperset(item):
         return None
     client_id = item.get("id")
     if type(client_id) is not str or not 0 < len(client_id) <= MAX_ID_LENGTH:
@@ -369,50 +343,98 @@ def validate_outcomes(
     raw = _rows(body, "outcomes")
     problems = _Problems()
     latest_us = now_us + future_tolerance_us
+    binary = shape.kind == "binary"
     class_index = {c: k for k, c in enumerate(shape.classes)}
     out: list[OutcomeRow] = []
     seen: dict[str, tuple[int, OutcomeRow]] = {}
     repeats = 0
     for i, item in enumerate(raw):
-        if not isinstance(item, dict):
-            problems.add(i, "", "each row must be a JSON object")
-            continue
-        before = len(problems.details)
-        for field in sorted(item.keys() - OUTCOME_FIELDS):
-            problems.add(i, field, "unknown field")
-        client_id = _client_id(problems, i, item.get("id"))
-        value = item.get("outcome")
-        outcome: int | None = None
-        if shape.kind == "binary":
-            if isinstance(value, bool):
-                outcome = int(value)
-            elif isinstance(value, int) and value in (0, 1):
-                outcome = value
-            else:
-                problems.add(i, "outcome", "required: 0 or 1 (true/false accepted)")
-        elif isinstance(value, str) and value in class_index:
-            outcome = class_index[value]
-        else:
-            problems.add(i, "outcome", f"required: one of the classes {list(shape.classes)}")
-        observed = item.get("observed_at")
-        observed_at = now_us if observed is None else _fast_instant(observed)
-        if observed_at is None or observed_at > latest_us:
-            observed_at = _instant(problems, i, "observed_at", observed, latest_us)
-        if len(problems.details) != before:
-            continue
-        assert client_id is not None and outcome is not None and observed_at is not None
-        row = OutcomeRow(i, client_id, outcome, observed_at)
-        previous = seen.get(client_id)
+        row = _fast_outcome(i, item, binary, class_index, now_us, latest_us)
+        if row is None:
+            row = _checked_outcome(problems, i, item, shape, class_index, now_us, latest_us)
+            if row is None:
+                continue
+        previous = seen.get(row.client_id)
         if previous is not None:
             if previous[1].outcome != row.outcome:
                 problems.add(i, "id", f"repeats the id of row {previous[0]} with another outcome")
             repeats += 1
             continue
-        seen[client_id] = (i, row)
+        seen[row.client_id] = (i, row)
         out.append(row)
     if problems.details:
         raise InvalidInput(_summary(problems, len(raw)), problems.details)
     return out, repeats
+
+
+def _fast_outcome(
+    i: int, item: Any, binary: bool, class_index: dict[str, int], now_us: int, latest_us: int
+) -> OutcomeRow | None:
+    """The row, if it is plainly valid; None to take the full checks (as for predictions)."""
+    if type(item) is not dict or not OUTCOME_FIELDS.issuperset(item):
+        return None
+    client_id = item.get("id")
+    if type(client_id) is not str or not 0 < len(client_id) <= MAX_ID_LENGTH:
+        return None
+    value = item.get("outcome")
+    if binary:
+        if type(value) is bool:
+            outcome = int(value)
+        elif type(value) is int and (value == 0 or value == 1):
+            outcome = value
+        else:
+            return None
+    elif type(value) is str and value in class_index:
+        outcome = class_index[value]
+    else:
+        return None
+    observed = item.get("observed_at")
+    if observed is None:
+        return OutcomeRow(i, client_id, outcome, now_us)
+    micros = _fast_instant(observed)
+    if micros is None or micros > latest_us:
+        return None
+    return OutcomeRow(i, client_id, outcome, micros)
+
+
+def _checked_outcome(
+    problems: _Problems,
+    i: int,
+    item: Any,
+    shape: ModelShape,
+    class_index: dict[str, int],
+    now_us: int,
+    latest_us: int,
+) -> OutcomeRow | None:
+    """Every check on one outcome row, each problem recorded; the row, or None."""
+    if not isinstance(item, dict):
+        problems.add(i, "", "each row must be a JSON object")
+        return None
+    before = len(problems.details)
+    for field in sorted(item.keys() - OUTCOME_FIELDS):
+        problems.add(i, field, "unknown field")
+    client_id = _client_id(problems, i, item.get("id"))
+    value = item.get("outcome")
+    outcome: int | None = None
+    if shape.kind == "binary":
+        if isinstance(value, bool):
+            outcome = int(value)
+        elif isinstance(value, int) and value in (0, 1):
+            outcome = value
+        else:
+            problems.add(i, "outcome", "required: 0 or 1 (true/false accepted)")
+    elif isinstance(value, str) and value in class_index:
+        outcome = class_index[value]
+    else:
+        problems.add(i, "outcome", f"required: one of the classes {list(shape.classes)}")
+    observed = item.get("observed_at")
+    observed_at = now_us if observed is None else _fast_instant(observed)
+    if observed_at is None or observed_at > latest_us:
+        observed_at = _instant(problems, i, "observed_at", observed, latest_us)
+    if len(problems.details) != before:
+        return None
+    assert client_id is not None and outcome is not None and observed_at is not None
+    return OutcomeRow(i, client_id, outcome, observed_at)
 
 
 def _summary(problems: _Problems, n_rows: int) -> str:

@@ -11,17 +11,25 @@ predictions of one model (default 1,000,000; random UUID ids) by calling
 stopped, settling the key tier as the server would. Then ``plumbwatch serve``
 runs as a subprocess and 4 client threads post R new predictions (random
 UUIDs; predicted_at rising over the last minute, within a second of jitter, as
-a live pipeline sends them; 1,000 per batch) and, on SQLite, outcomes for R of the preloaded ids.
+a live pipeline sends them; 1,000 per batch) and outcomes for R of the preloaded ids.
 The bare-driver line writes the same new rows into a comparable table already
 holding N rows, in 1,000-row transactions: sqlite3 ``executemany`` into a table
 with a UNIQUE (model, client id) index (WAL, synchronous=FULL), or psycopg COPY
 into a table with the same unique index. Peak server RSS is VmHWM from
 ``/proc/<pid>/status``. This is a report, not a test: it asserts nothing.
+
+Request bodies are JSON-encoded before the clock starts, as a pipeline can encode
+the next batch while one is in flight; on this 2-core machine the clients' own
+encoding would otherwise compete with the server for CPU. CPU seconds of the server
+process (all threads, ``/proc/<pid>/stat``) and of the client threads are reported
+per 1,000 rows, with the load average before and after: other work on a shared
+machine lowers the absolute rates, the ratio to the bare driver less so.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import queue
 import random
 import shutil
@@ -175,6 +183,41 @@ def outcome_bodies(rows: Sequence[Row], rng: random.Random) -> list[bytes]:
     ]
 
 
+@dataclass
+class Phase:
+    """One HTTP phase: wall seconds, and CPU seconds of the server and of the clients."""
+
+    rows: int
+    wall_s: float
+    server_cpu_s: float
+    client_cpu_s: float
+
+    @property
+    def rate(self) -> float:
+        return self.rows / self.wall_s
+
+    def per_1000(self, cpu_s: float) -> float:
+        """CPU milliseconds per 1,000 rows."""
+        return cpu_s * 1e6 / self.rows
+
+
+def cpu_seconds(pid: int) -> float:
+    """User plus system CPU seconds of a process, all threads (``/proc/<pid>/stat``)."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def timed_post(server: live.Server, token: str, path: str, bodies: list[bytes]) -> Phase:
+    server_before, client_before = cpu_seconds(server.pid), time.process_time()
+    wall = post_all(server.url, token, path, bodies, BATCH)
+    return Phase(
+        rows=len(bodies) * BATCH,
+        wall_s=wall,
+        server_cpu_s=cpu_seconds(server.pid) - server_before,
+        client_cpu_s=time.process_time() - client_before,
+    )
+
+
 def post_all(url: str, token: str, path: str, bodies: list[bytes], expect: int) -> float:
     """Post every body from CLIENTS threads; returns wall seconds. Raises on any failure."""
     work: queue.Queue[bytes] = queue.Queue()
@@ -304,9 +347,9 @@ def bare_copy(
 @dataclass
 class Result:
     engine: str
-    http_pred: float
+    predictions: Phase
     bare: float
-    outcomes: float | None
+    outcomes: Phase | None
     rss_mib: float
     preload_s: float
 
@@ -339,21 +382,19 @@ def run_engine(kind: str, args: argparse.Namespace, work: Path) -> Result:
         print(f"[{kind}] preloaded in {preload_s:.1f} s", flush=True)
         bodies = prediction_bodies(new_rows)
         out_bodies = (
-            outcome_bodies(preload_rows[: args.outcome_rows], rng)
-            if kind == "sqlite" and args.outcome_rows
-            else []
+            outcome_bodies(preload_rows[: args.outcome_rows], rng) if args.outcome_rows else []
         )
         with live.served(url, work / f"server-{kind}.log", extra_args=args.serve_args) as server:
-            path = f"/v1/models/{MODEL}/predictions"
-            secs = post_all(server.url, token, path, bodies, BATCH)
-            http_pred = len(new_rows) / secs
-            print(f"[{kind}] HTTP predictions: {http_pred:,.0f}/s ({secs:.1f} s)", flush=True)
+            pred = timed_post(server, token, f"/v1/models/{MODEL}/predictions", bodies)
+            rate = f"{pred.rate:,.0f}/s ({pred.wall_s:.1f} s)"
+            print(f"[{kind}] HTTP predictions: {rate}", flush=True)
             outcomes = None
             if out_bodies:
-                path = f"/v1/models/{MODEL}/outcomes"
-                secs = post_all(server.url, token, path, out_bodies, BATCH)
-                outcomes = args.outcome_rows / secs
-                print(f"[{kind}] HTTP outcomes: {outcomes:,.0f}/s ({secs:.1f} s)", flush=True)
+                outcomes = timed_post(server, token, f"/v1/models/{MODEL}/outcomes", out_bodies)
+                print(
+                    f"[{kind}] HTTP outcomes: {outcomes.rate:,.0f}/s ({outcomes.wall_s:.1f} s)",
+                    flush=True,
+                )
             rss = peak_rss_mib(server.pid)
         print(f"[{kind}] bare driver: preloading and writing", flush=True)
         if kind == "sqlite":
@@ -363,7 +404,7 @@ def run_engine(kind: str, args: argparse.Namespace, work: Path) -> Result:
             secs = bare_copy(args.pg_url, schema, preload_rows, new_rows, now_us)
         bare = len(new_rows) / secs
         print(f"[{kind}] bare: {bare:,.0f}/s ({secs:.1f} s)", flush=True)
-        return Result(kind, http_pred, bare, outcomes, rss, preload_s)
+        return Result(kind, pred, bare, outcomes, rss, preload_s)
     finally:
         if schema is not None:
             with admin.begin() as conn:
@@ -371,27 +412,36 @@ def run_engine(kind: str, args: argparse.Namespace, work: Path) -> Result:
             admin.dispose()
 
 
-def report(results: list[Result], argv: list[str]) -> None:
+def report(results: list[Result], argv: list[str], load: tuple[str, str]) -> None:
     print()
     print("command: .venv/bin/python tests/benchmarks/bench_ingest.py " + " ".join(argv))
-    print(f"{'measure':48} {'value':>14} {'target':>12}")
+    print(f"load average (1, 5, 15 min) before: {load[0]}; after: {load[1]}")
+    print(f"{'measure':52} {'value':>12} {'target':>12}")
     targets = {"sqlite": 40_000, "postgresql": 25_000}
     bare_name = {"sqlite": "bare sqlite3 executemany", "postgresql": "bare psycopg COPY"}
+
+    def line(name: str, value: str, target: str = "") -> None:
+        print(f"{name:52} {value:>12} {target:>12}")
+
     for r in results:
-        print(
-            f"{'HTTP ' + r.engine + ' predictions/s':48} {r.http_pred:>14,.0f} "
-            f"{'>= ' + format(targets[r.engine], ','):>12}"
-        )
-        print(f"{bare_name[r.engine] + ' rows/s (1,000-row tx)':48} {r.bare:>14,.0f}")
-        target = ">= 1.0x" if r.engine == "sqlite" else ""
-        print(
-            f"{'ratio HTTP / bare (' + r.engine + ')':48} {r.http_pred / r.bare:>13.2f}x "
-            f"{target:>12}"
-        )
+        e, p = r.engine, r.predictions
+        line(f"HTTP {e} predictions/s", f"{p.rate:,.0f}", f">= {targets[e]:,}")
+        line(f"{bare_name[e]} rows/s (1,000-row tx)", f"{r.bare:,.0f}")
+        ratio_target = ">= 1.0x" if e == "sqlite" else ""
+        line(f"ratio HTTP / bare ({e})", f"{p.rate / r.bare:.2f}x", ratio_target)
+        line(f"server CPU ms per 1,000 predictions ({e})", f"{p.per_1000(p.server_cpu_s):.1f}")
+        line(f"client CPU ms per 1,000 predictions ({e})", f"{p.per_1000(p.client_cpu_s):.1f}")
         if r.outcomes is not None:
-            print(f"{'HTTP ' + r.engine + ' outcomes/s':48} {r.outcomes:>14,.0f} {'>= 30,000':>12}")
-        print(f"{'peak server RSS, MiB (' + r.engine + ')':48} {r.rss_mib:>14,.0f} {'< 300':>12}")
-        print(f"{'preload seconds (' + r.engine + ', not a target)':48} {r.preload_s:>14,.1f}")
+            o = r.outcomes
+            line(f"HTTP {e} outcomes/s", f"{o.rate:,.0f}", ">= 30,000" if e == "sqlite" else "")
+            line(f"server CPU ms per 1,000 outcomes ({e})", f"{o.per_1000(o.server_cpu_s):.1f}")
+            line(f"client CPU ms per 1,000 outcomes ({e})", f"{o.per_1000(o.client_cpu_s):.1f}")
+        line(f"peak server RSS, MiB ({e})", f"{r.rss_mib:,.0f}", "< 300")
+        line(f"preload seconds ({e}, not a target)", f"{r.preload_s:,.1f}")
+
+
+def load_average() -> str:
+    return ", ".join(f"{x:.2f}" for x in os.getloadavg())
 
 
 def main() -> None:
@@ -406,12 +456,13 @@ def main() -> None:
     args = parser.parse_args()
     kinds = ["sqlite", "postgresql"] if args.engine == "both" else [args.engine]
     work = Path(tempfile.mkdtemp(prefix="plumbwatch-bench-"))
+    load_before = load_average()
     try:
         results = [run_engine(k, args, work) for k in kinds]
     finally:
         if not args.keep:
             shutil.rmtree(work, ignore_errors=True)
-    report(results, sys.argv[1:])
+    report(results, sys.argv[1:], (load_before, load_average()))
 
 
 if __name__ == "__main__":

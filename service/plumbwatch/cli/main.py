@@ -8,6 +8,7 @@ for a mistake in input.
 from __future__ import annotations
 
 import argparse
+import gc
 import logging
 import sys
 from collections.abc import Iterator, Sequence
@@ -78,6 +79,9 @@ def cmd_serve(settings: Settings, args: argparse.Namespace) -> int:
         require_current(engine)  # refuse early, with the command that fixes it
         app = create_app(settings, engine=engine)
         print(f"plumbwatch {__version__} serving on http://{host}:{port}", flush=True)
+        # Start-up objects live as long as the process: freezing them keeps them out of
+        # the garbage collections that ingest's many short-lived rows trigger.
+        gc.freeze()
         uvicorn.run(
             app,
             host=host,

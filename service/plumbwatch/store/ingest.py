@@ -7,21 +7,17 @@ each batch in a savepoint, so a raise leaves no trace).
 
 from __future__ import annotations
 
+from collections import namedtuple
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Any
 
 import sqlalchemy as sa
 
 from plumbwatch.errors import Conflict, Detail
 from plumbwatch.store import keys
-from plumbwatch.store.tables import (
-    outcome_revisions,
-    outcomes,
-    predictions,
-    row_keys,
-    row_keys_recent,
-)
+from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
 from plumbwatch.validation import OutcomeRow, PredictionRow
 
 _PREDICTION_COLUMNS = (
@@ -35,6 +31,8 @@ _PREDICTION_COLUMNS = (
     "segments",
     "received_at_us",
 )
+# write_predictions builds each new row as (id, model_id, *row[1:], received_at_us).
+assert PredictionRow._fields[1:] == _PREDICTION_COLUMNS[2:-1]
 _OUTCOME_COLUMNS = (
     "id",
     "model_id",
@@ -61,52 +59,79 @@ class OutcomesWritten:
     awaiting_prediction: int
 
 
-def _existing(
+class _Keys:
+    """Where the batch's ids are stored: row ids by kind and hash, from one key lookup."""
+
+    def __init__(self, conn: sa.Connection, *, model_id: int, hashes: Sequence[int]) -> None:
+        self._found = keys.lookup(conn, model_id=model_id, hashes=hashes)
+
+    def row_ids(self, kind: str, hashes: Sequence[int] | None = None) -> list[int]:
+        """Row ids of this kind stored under the given hashes (None: any of the batch)."""
+        found = self._found
+        pairs = found.values() if hashes is None else (found[h] for h in hashes if h in found)
+        return [row_id for group in pairs for k, row_id in group if k == kind]
+
+
+def _fetch(
     conn: sa.Connection,
     table: sa.Table,
     columns: Sequence[str],
     *,
-    model_id: int,
-    kind: str,
-    client_ids: Sequence[str],
-    hashes: Sequence[int],
-) -> dict[str, sa.Row[Any]]:
-    """Stored rows of this model whose client id is among client_ids.
+    row_ids: Sequence[int],
+    client_ids: set[str],
+) -> dict[str, Any]:
+    """Rows by primary key (with attributes ``id``, ``client_id`` and ``columns``), by
+    client id, for the client ids asked.
 
-    One statement per chunk joins both key tiers to the table (one snapshot), sent
-    as plain SQL: ingest runs it for every batch, and statement compilation with
-    thousands of bound values cost more than the lookup itself.
+    A hash only narrows the search: keying by the stored id text here is what keeps
+    two different ids that share a hash apart. Plain SQL, as for the key lookup.
     """
-    mark = keys.placeholder(conn)
-    select = ", ".join(f"t.{c}" for c in ("id", "client_id", *columns))
-    found: dict[str, sa.Row[Any]] = {}
-    wanted = set(client_ids)
-    for chunk in keys.chunked(sorted(set(hashes)), conn):
-        where, params = keys.hash_filter(conn, chunk)
-        sql = " UNION ALL ".join(
-            f"SELECT {select} FROM {tier.name} k JOIN {table.name} t ON t.id = k.row_id "
-            f"WHERE k.model_id = {mark} AND k.kind = {mark} AND k.{where}"
-            for tier in (row_keys, row_keys_recent)
+    found: dict[str, Any] = {}
+    if not row_ids:
+        return found
+    names = ("id", "client_id", *columns)
+    stored = _stored_row(names)
+    exact = not any(isinstance(table.c[c].type, sa.Float) for c in columns)
+    for chunk in keys.chunked(sorted(set(row_ids)), conn):
+        where, params = keys.any_of(conn, "id", chunk)
+        sql = f"SELECT {', '.join(names)} FROM {table.name} WHERE {where}"
+        rows = (
+            keys.select_exact(conn, names, sql, params)
+            if exact
+            else conn.exec_driver_sql(sql, params)
         )
-        for row in conn.exec_driver_sql(sql, (model_id, kind, *params, model_id, kind, *params)):
-            if row.client_id in wanted:
+        for values in rows:
+            row = stored._make(values)
+            if row.client_id in client_ids:
                 found[row.client_id] = row
     return found
 
 
+@lru_cache(maxsize=16)
+def _stored_row(names: tuple[str, ...]) -> Any:
+    return namedtuple("StoredRow", names)
+
+
 def write_predictions(
-    conn: sa.Connection, *, model_id: int, rows: Sequence[PredictionRow], now_us: int
+    conn: sa.Connection,
+    *,
+    model_id: int,
+    rows: Sequence[PredictionRow],
+    now_us: int,
+    hashes: Sequence[int] | None = None,
 ) -> PredictionsWritten:
+    """``hashes``: ``keys.id_hashes`` of the rows' client ids, if the caller has them
+    (the API computes them before queueing, off the single writer thread)."""
     keys.lock_model(conn, model_id)
-    hashes = [keys.id_hash(r.client_id) for r in rows]
-    stored = _existing(
+    if hashes is None:
+        hashes = keys.id_hashes(r.client_id for r in rows)
+    found = _Keys(conn, model_id=model_id, hashes=hashes)
+    stored = _fetch(
         conn,
         predictions,
         ["predicted_at_us", "probability", "probabilities", "version", "segments"],
-        model_id=model_id,
-        kind="p",
-        client_ids=[r.client_id for r in rows],
-        hashes=hashes,
+        row_ids=found.row_ids("p"),
+        client_ids={r.client_id for r in rows},
     )
     conflicts: list[Detail] = []
     new: list[tuple[PredictionRow, int]] = []
@@ -127,7 +152,7 @@ def write_predictions(
             conflicts.append(
                 Detail(
                     field="id",
-                    index=row.index,
+                    index=row.position,
                     reason=f"{row.client_id!r} is stored with different content",
                 )
             )
@@ -142,20 +167,8 @@ def write_predictions(
             conn,
             predictions.name,
             _PREDICTION_COLUMNS,
-            [
-                (
-                    rid,
-                    model_id,
-                    r.client_id,
-                    r.predicted_at_us,
-                    r.probability,
-                    r.probabilities,
-                    r.version,
-                    r.segments,
-                    now_us,
-                )
-                for rid, (r, _) in zip(ids, new, strict=True)
-            ],
+            # A row's fields after its position are the stored columns, in order.
+            [(rid, model_id, *r[1:], now_us) for rid, (r, _) in zip(ids, new, strict=True)],
         )
         keys.add(
             conn,
@@ -163,33 +176,29 @@ def write_predictions(
             kind="p",
             pairs=((h, rid) for rid, (_, h) in zip(ids, new, strict=True)),
         )
-        _link_waiting_outcomes(
-            conn,
-            model_id=model_id,
-            new=[(r.client_id, h, rid) for rid, (r, h) in zip(ids, new, strict=True)],
-        )
+        waiting = found.row_ids("o")
+        if waiting:
+            _link_waiting_outcomes(
+                conn,
+                waiting=waiting,
+                new={r.client_id: rid for rid, (r, _) in zip(ids, new, strict=True)},
+            )
     return PredictionsWritten(accepted=len(new), duplicates=duplicates)
 
 
 def _link_waiting_outcomes(
-    conn: sa.Connection, *, model_id: int, new: Sequence[tuple[str, int, int]]
+    conn: sa.Connection, *, waiting: Sequence[int], new: dict[str, int]
 ) -> None:
-    """Join outcomes that arrived before their prediction to the new prediction rows."""
-    waiting = _existing(
-        conn,
-        outcomes,
-        ["prediction_id"],
-        model_id=model_id,
-        kind="o",
-        client_ids=[c for c, _, _ in new],
-        hashes=[h for _, h, _ in new],
-    )
-    if not waiting:
-        return
+    """Join outcomes that arrived before their prediction to the new prediction rows.
+
+    ``waiting``: outcome rows whose key matched a hash of the batch; ``new``: the new
+    predictions' row ids by client id.
+    """
+    outcome_rows = _fetch(conn, outcomes, ["prediction_id"], row_ids=waiting, client_ids=set(new))
     links = [
-        {"oid": waiting[c].id, "pid": rid}
-        for c, _, rid in new
-        if c in waiting and waiting[c].prediction_id is None
+        {"oid": row.id, "pid": new[client_id]}
+        for client_id, row in outcome_rows.items()
+        if row.prediction_id is None
     ]
     if links:
         conn.execute(
@@ -207,22 +216,22 @@ def write_outcomes(
     rows: Sequence[OutcomeRow],
     now_us: int,
     correction: bool,
+    hashes: Sequence[int] | None = None,
 ) -> OutcomesWritten:
     keys.lock_model(conn, model_id)
-    hashes = [keys.id_hash(r.client_id) for r in rows]
-    client_ids = [r.client_id for r in rows]
-    stored = _existing(
+    if hashes is None:
+        hashes = keys.id_hashes(r.client_id for r in rows)
+    found = _Keys(conn, model_id=model_id, hashes=hashes)
+    stored = _fetch(
         conn,
         outcomes,
         ["outcome", "observed_at_us", "received_at_us", "prediction_id", "revision"],
-        model_id=model_id,
-        kind="o",
-        client_ids=client_ids,
-        hashes=hashes,
+        row_ids=found.row_ids("o"),
+        client_ids={r.client_id for r in rows},
     )
     conflicts: list[Detail] = []
     new: list[tuple[OutcomeRow, int]] = []
-    changed: list[tuple[OutcomeRow, sa.Row[Any]]] = []
+    changed: list[tuple[OutcomeRow, Any]] = []
     duplicates = awaiting = 0
     for row, h in zip(rows, hashes, strict=True):
         old = stored.get(row.client_id)
@@ -239,7 +248,7 @@ def write_outcomes(
             conflicts.append(
                 Detail(
                     field="outcome",
-                    index=row.index,
+                    index=row.position,
                     reason=f"{row.client_id!r} has a stored outcome with another value; "
                     "send it with ?correction=true to correct it",
                 )
@@ -252,14 +261,12 @@ def write_outcomes(
     if changed:
         _apply_corrections(conn, changed, now_us=now_us)
     if new:
-        predicted = _existing(
+        predicted = _fetch(
             conn,
             predictions,
             [],
-            model_id=model_id,
-            kind="p",
-            client_ids=[r.client_id for r, _ in new],
-            hashes=[h for _, h in new],
+            row_ids=found.row_ids("p", [h for _, h in new]),
+            client_ids={r.client_id for r, _ in new},
         )
         ids = keys.allocate_ids(conn, outcomes, len(new))
         params = []
@@ -295,7 +302,7 @@ def write_outcomes(
 
 
 def _apply_corrections(
-    conn: sa.Connection, changed: Sequence[tuple[OutcomeRow, sa.Row[Any]]], *, now_us: int
+    conn: sa.Connection, changed: Sequence[tuple[OutcomeRow, Any]], *, now_us: int
 ) -> None:
     """Keep each superseded value with its times, then store the correction."""
     conn.execute(

@@ -8,10 +8,19 @@ pages a commit dirties are few; from time to time :func:`settle` moves the
 recent tier into ``row_keys`` in hash order, touching each settled page about
 once per move instead of once per row.
 
-A hash only narrows the search: callers always compare the stored id text, so a
-collision can never merge two different ids. Uniqueness comes from the writer:
-check and insert run inside one write transaction (SQLite's write lock; on
-PostgreSQL a per-model advisory lock, see :func:`lock_model`).
+PostgreSQL logs row changes, not whole pages, at each commit, so there the
+recent tier buys nothing and costs a second probe per id, a DELETE per moved
+key (dead rows the lookups wade through until vacuum) and, worse, plans made on
+the statistics of a table that swings between empty and full (a lookup of 2,000
+ids took 20 s at 1M rows): keys go straight into ``row_keys``, and only that
+tier is read (migration 0005 moved the recent tier into it).
+
+Keys are ordered (model, hash, kind, row): one probe finds whether an id is
+stored as a prediction, an outcome or both. A hash only narrows the search:
+callers always compare the stored id text, so a collision can never merge two
+different ids. Uniqueness comes from the writer: check and insert run inside one
+write transaction (SQLite's write lock; on PostgreSQL a per-model advisory lock,
+see :func:`lock_model`).
 """
 
 from __future__ import annotations
@@ -22,6 +31,7 @@ from collections.abc import Iterable, Iterator, Sequence
 from itertools import chain
 from typing import Any
 
+import orjson
 import sqlalchemy as sa
 
 from plumbwatch.store.tables import row_keys, row_keys_recent
@@ -34,6 +44,15 @@ _LOCK_NAMESPACE = 0x706C  # first key of pg_advisory_xact_lock(ns, model_id)
 def id_hash(client_id: str) -> int:
     digest = hashlib.blake2b(client_id.encode("utf-8"), digest_size=8).digest()
     return int.from_bytes(digest, "big", signed=True)
+
+
+def id_hashes(client_ids: Iterable[str]) -> list[int]:
+    """``id_hash`` of each id (the same values, with the lookups hoisted out of the loop)."""
+    blake2b, from_bytes = hashlib.blake2b, int.from_bytes
+    return [
+        from_bytes(blake2b(c.encode("utf-8"), digest_size=8).digest(), "big", signed=True)
+        for c in client_ids
+    ]
 
 
 def lock_model(conn: sa.Connection, model_id: int) -> None:
@@ -53,15 +72,22 @@ def placeholder(conn: sa.Connection) -> str:
     return "?" if conn.dialect.name == "sqlite" else "%s"
 
 
-def hash_filter(conn: sa.Connection, hashes: Sequence[int]) -> tuple[str, list[Any]]:
-    """SQL matching ``id_hash`` against hashes, with its parameters.
+def any_of(conn: sa.Connection, column: str, values: Sequence[int]) -> tuple[str, tuple[Any, ...]]:
+    """SQL matching an integer column against values, with its parameters.
 
     Ingest runs this for every row, so it bypasses statement compilation: one
-    array parameter on PostgreSQL, plain markers on SQLite (callers chunk).
+    array parameter on PostgreSQL, plain markers on SQLite (callers chunk). The
+    array goes as its text form: psycopg would adapt a list of ints element by
+    element in Python, which cost more than the lookup itself.
     """
     if conn.dialect.name == "postgresql":
-        return "id_hash = ANY(%s::bigint[])", [list(hashes)]
-    return f"id_hash IN ({','.join('?' * len(hashes))})", list(hashes)
+        return f"{column} = ANY(%s::bigint[])", (array_literal(values),)
+    return f"{column} IN ({','.join('?' * len(values))})", tuple(values)
+
+
+def array_literal(values: Iterable[int]) -> str:
+    """A PostgreSQL array literal of integers, e.g. ``{1,-2,3}``."""
+    return "{" + ",".join(map(str, values)) + "}"
 
 
 def chunked(values: Sequence[int], conn: sa.Connection) -> Iterator[Sequence[int]]:
@@ -71,30 +97,59 @@ def chunked(values: Sequence[int], conn: sa.Connection) -> Iterator[Sequence[int
         yield values[start : start + LOOKUP_CHUNK]
 
 
+def select_exact(
+    conn: sa.Connection, columns: Sequence[str], source: str, params: Sequence[Any]
+) -> list[Sequence[Any]]:
+    """The rows of ``source`` (a SELECT of ``columns``): integer and text columns only.
+
+    On SQLite the rows come back as one JSON array: the sqlite3 module steps once
+    per result row and gives up the GIL around each step, so a thousand-row result
+    meant a thousand waits for the GIL while request threads parse JSON. Floats
+    must not come this way (SQLite's JSON writes 15 significant digits).
+    """
+    if conn.dialect.name != "sqlite":
+        return list(conn.exec_driver_sql(source, tuple(params)))
+    names = ", ".join(columns)
+    packed = conn.exec_driver_sql(
+        f"SELECT json_group_array(json_array({names})) FROM ({source})", tuple(params)
+    ).scalar_one()
+    rows: list[Sequence[Any]] = orjson.loads(packed)
+    return rows
+
+
 def lookup(
-    conn: sa.Connection, *, model_id: int, kind: str, hashes: Sequence[int]
-) -> dict[int, list[int]]:
-    """Row ids stored under each hash, from both tiers (one statement, one snapshot)."""
-    found: dict[int, list[int]] = defaultdict(list)
+    conn: sa.Connection, *, model_id: int, hashes: Sequence[int]
+) -> dict[int, list[tuple[str, int]]]:
+    """(kind, row id) pairs stored under each hash, from every tier in use (one statement,
+    one snapshot). Keys are ordered hash before kind, so one probe finds both kinds."""
+    found: dict[int, list[tuple[str, int]]] = defaultdict(list)
     mark = placeholder(conn)
+    tiers = [row_keys.name]
+    if uses_recent_tier(conn.dialect.name):
+        tiers.append(row_keys_recent.name)
     for chunk in chunked(sorted(set(hashes)), conn):
-        where, params = hash_filter(conn, chunk)
+        where, params = any_of(conn, "id_hash", chunk)
         sql = " UNION ALL ".join(
-            f"SELECT id_hash, row_id FROM {table} WHERE model_id = {mark} AND kind = {mark} "
-            f"AND {where}"
-            for table in (row_keys.name, row_keys_recent.name)
+            f"SELECT id_hash, kind, row_id FROM {table} WHERE model_id = {mark} AND {where}"
+            for table in tiers
         )
-        args = (model_id, kind, *params, model_id, kind, *params)
-        for h, row_id in conn.exec_driver_sql(sql, args):
-            found[h].append(row_id)
+        columns = ("id_hash", "kind", "row_id")
+        for h, kind, row_id in select_exact(conn, columns, sql, (model_id, *params) * len(tiers)):
+            found[h].append((kind, row_id))
     return found
 
 
+def uses_recent_tier(dialect: str) -> bool:
+    """Whether new keys go to the recent tier (SQLite) or straight to the settled one."""
+    return dialect != "postgresql"
+
+
 def add(conn: sa.Connection, *, model_id: int, kind: str, pairs: Iterable[tuple[int, int]]) -> int:
-    """Record (hash, row id) pairs in the recent tier; returns how many."""
-    rows = sorted((model_id, kind, h, row_id) for h, row_id in pairs)  # key order: fewer pages
+    """Record (hash, row id) pairs (SQLite: in the recent tier); returns how many."""
+    rows = sorted((model_id, h, kind, row_id) for h, row_id in pairs)  # key order: fewer pages
     if rows:
-        insert_rows(conn, row_keys_recent.name, ("model_id", "kind", "id_hash", "row_id"), rows)
+        table = row_keys_recent if uses_recent_tier(conn.dialect.name) else row_keys
+        insert_rows(conn, table.name, ("model_id", "id_hash", "kind", "row_id"), rows)
     return len(rows)
 
 
@@ -131,21 +186,21 @@ def recent_count(conn: sa.Connection) -> int:
 
 def settle(conn: sa.Connection) -> int:
     """Move the recent tier into the settled one, in key order. Returns rows moved."""
-    columns = "model_id, kind, id_hash, row_id"
+    columns = "model_id, id_hash, kind, row_id"  # the primary key's order
     if conn.dialect.name == "postgresql":
         # One statement: rows another server adds meanwhile stay in the recent tier.
         result = conn.execute(
             sa.text(
                 f"WITH moved AS (DELETE FROM row_keys_recent RETURNING {columns}) "
                 f"INSERT INTO row_keys ({columns}) SELECT {columns} FROM moved "
-                "ORDER BY model_id, kind, id_hash, row_id"
+                f"ORDER BY {columns}"
             )
         )
         return int(result.rowcount or 0)
     moved = conn.execute(
         sa.text(
             f"INSERT INTO row_keys ({columns}) SELECT {columns} FROM row_keys_recent "
-            "ORDER BY model_id, kind, id_hash, row_id"
+            f"ORDER BY {columns}"
         )
     ).rowcount
     conn.execute(sa.text("DELETE FROM row_keys_recent"))
@@ -161,10 +216,12 @@ def allocate_ids(conn: sa.Connection, table: sa.Table, n: int) -> list[int]:
     if n == 0:
         return []
     if conn.dialect.name == "postgresql":
-        rows = conn.execute(
-            sa.text("SELECT nextval(pg_get_serial_sequence(:t, 'id')) FROM generate_series(1, :n)"),
-            {"t": table.name, "n": n},
-        )
-        return [r[0] for r in rows]
-    first = conn.execute(sa.select(sa.func.coalesce(sa.func.max(table.c.id), 0) + 1)).scalar_one()
+        # One row holding an array: a thousand result rows cost more than the nextvals.
+        ids = conn.exec_driver_sql(
+            "SELECT array_agg(nextval(pg_get_serial_sequence(%s, 'id'))) "
+            "FROM generate_series(1, %s)",
+            (table.name, n),
+        ).scalar_one()
+        return sorted(ids)
+    first = conn.exec_driver_sql(f"SELECT coalesce(max(id), 0) + 1 FROM {table.name}").scalar_one()
     return list(range(int(first), int(first) + n))

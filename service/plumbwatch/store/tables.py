@@ -46,11 +46,14 @@ monitored_models = sa.Table(
     sa.CheckConstraint("missing_outcome IN ('wait', 'negative')", name="missing_outcome"),
 )
 
+# Raw rows carry no foreign keys (0005): the group writer alone writes them, from rows
+# it has just read under the model's write lock, and PostgreSQL's per-row checks cost
+# about as much as the COPY itself.
 predictions = sa.Table(
     "predictions",
     metadata,
     sa.Column("id", RowId, primary_key=True),
-    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), nullable=False),
+    sa.Column("model_id", sa.Integer, nullable=False),  # monitored_models.id
     sa.Column("client_id", sa.String(200), nullable=False),
     sa.Column("predicted_at_us", sa.BigInteger, nullable=False),
     sa.Column("probability", sa.Float, nullable=True),
@@ -65,9 +68,9 @@ outcomes = sa.Table(
     "outcomes",
     metadata,
     sa.Column("id", RowId, primary_key=True),
-    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), nullable=False),
+    sa.Column("model_id", sa.Integer, nullable=False),  # monitored_models.id
     sa.Column("client_id", sa.String(200), nullable=False),
-    sa.Column("prediction_id", RowId, sa.ForeignKey("predictions.id"), nullable=True),
+    sa.Column("prediction_id", RowId, nullable=True),  # predictions.id, once it arrived
     # Binary: 0 or 1. Multiclass: the index of the class in the model's declared classes.
     sa.Column("outcome", sa.Integer, nullable=False),
     sa.Column("observed_at_us", sa.BigInteger, nullable=False),
@@ -91,10 +94,12 @@ def _key_table(name: str) -> sa.Table:
     return sa.Table(
         name,
         metadata,
-        sa.Column("model_id", sa.Integer, primary_key=True),
-        sa.Column("kind", sa.String(1), primary_key=True),  # 'p' prediction, 'o' outcome
-        sa.Column("id_hash", sa.BigInteger, primary_key=True),
-        sa.Column("row_id", sa.BigInteger, primary_key=True),
+        sa.Column("model_id", sa.Integer, nullable=False),
+        sa.Column("kind", sa.String(1), nullable=False),  # 'p' prediction, 'o' outcome
+        sa.Column("id_hash", sa.BigInteger, nullable=False),
+        sa.Column("row_id", sa.BigInteger, nullable=False),
+        # Hash before kind: one probe finds an id's prediction and outcome (0005).
+        sa.PrimaryKeyConstraint("model_id", "id_hash", "kind", "row_id"),
         sqlite_with_rowid=False,
     )
 

@@ -9,6 +9,11 @@ only after the COMMIT returned, so every acknowledged batch is durable
 One commit per group instead of one per request is what lets ingestion keep
 up with several pipelines on one disk: the per-commit fsync and the index
 pages a commit rewrites are shared by every batch in the group.
+
+The writer keeps one connection for its whole life. On SQLite each connection
+has its own page cache, emptied whenever another connection has written since
+its last transaction; a pooled connection would meet the key index cold after
+every group, and read about one page per looked-up id from the OS.
 """
 
 from __future__ import annotations
@@ -68,6 +73,7 @@ class GroupWriter:
         self._commits = 0
         self._thread: threading.Thread | None = None
         self._stopping = False
+        self._conn: sa.Connection | None = None  # used by the writer thread only
 
     def start(self) -> None:
         if self._thread is None:
@@ -105,34 +111,53 @@ class GroupWriter:
         return group
 
     def _run(self) -> None:
-        while True:
-            first = self._queue.get()
-            if first is None:
-                return
-            group = self._take_group(first)
-            self._apply(group)
-            self._maybe_settle()
+        try:
+            while True:
+                first = self._queue.get()
+                if first is None:
+                    return
+                group = self._take_group(first)
+                self._apply(group)
+                self._maybe_settle()
+        finally:
+            self._drop_connection()
+
+    def _connection(self) -> sa.Connection:
+        if self._conn is None:
+            conn = self._engine.connect()
+            self._conn = conn.execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
+        return self._conn
+
+    def _drop_connection(self) -> None:
+        """Forget the connection after a failure (it may be broken) or at stop."""
+        if self._conn is not None:
+            try:
+                self._conn.invalidate()
+                self._conn.close()
+            except sa.exc.SQLAlchemyError as exc:
+                log.warning("closing the writer's connection failed: %s", exc)
+            self._conn = None
 
     def _apply(self, group: list[_Job]) -> None:
         for attempt in range(self._retries + 1):
             results: list[tuple[_Job, Any, BaseException | None]] = []
             try:
-                with self._engine.connect() as conn:
-                    conn = conn.execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
-                    with conn.begin():
-                        for job in group:
-                            savepoint = conn.begin_nested()
-                            try:
-                                value = job.work(conn)
-                            except Exception as exc:  # the batch fails alone
-                                savepoint.rollback()
-                                results.append((job, None, exc))
-                            else:
-                                savepoint.commit()
-                                results.append((job, value, None))
+                conn = self._connection()
+                with conn.begin():
+                    for job in group:
+                        savepoint = conn.begin_nested()
+                        try:
+                            value = job.work(conn)
+                        except Exception as exc:  # the batch fails alone
+                            savepoint.rollback()
+                            results.append((job, None, exc))
+                        else:
+                            savepoint.commit()
+                            results.append((job, value, None))
             except sa.exc.OperationalError as exc:
                 # Locked or busy database, dropped connection: nothing was committed,
-                # so the whole group is safe to retry.
+                # so the whole group is safe to retry (on a fresh connection).
+                self._drop_connection()
                 if attempt < self._retries:
                     log.warning("write group failed (%s); retrying", exc.orig)
                     time.sleep(min(0.05 * 2**attempt, 1.0))
@@ -140,6 +165,7 @@ class GroupWriter:
                 self._fail(group, exc)
                 return
             except Exception as exc:
+                self._drop_connection()
                 self._fail(group, exc)
                 return
             self._commits += 1
@@ -148,9 +174,8 @@ class GroupWriter:
                     job.future.set_result(value)
                 else:
                     job.future.set_exception(error)
-            self._recent_keys = (self._recent_keys or 0) + sum(
-                job.rows for job, _, error in results if error is None
-            )
+            if self._recent_keys is not None:
+                self._recent_keys += sum(job.rows for job, _, error in results if error is None)
             return
 
     @staticmethod
@@ -161,19 +186,23 @@ class GroupWriter:
 
     def _maybe_settle(self) -> None:
         """Move the recent key tier into the settled one once it has grown."""
-        if self._recent_keys is None or self._commits % 100 == 0:
-            with self._engine.connect() as conn:
-                self._recent_keys = keys.recent_count(conn)
-        if self._recent_keys < self._settle_threshold:
+        if not keys.uses_recent_tier(self._engine.dialect.name):
             return
-        started = time.perf_counter()
         try:
-            with self._engine.connect() as conn:
-                conn = conn.execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
+            conn = self._connection()
+            if self._recent_keys is None or self._commits % 100 == 0:
                 with conn.begin():
-                    moved = keys.settle(conn)
-        except sa.exc.OperationalError as exc:
-            log.warning("settling row keys failed, will retry later: %s", exc.orig)
+                    self._recent_keys = keys.recent_count(conn)
+            if self._recent_keys < self._settle_threshold:
+                return
+            started = time.perf_counter()
+            with conn.begin():
+                moved = keys.settle(conn)
+        except sa.exc.SQLAlchemyError as exc:
+            # Ingest goes on without settling (lookups read both tiers); a dead writer
+            # thread would leave every later request waiting.
+            self._drop_connection()
+            log.warning("settling row keys failed, will retry later: %s", exc)
             return
         self._recent_keys = 0
         log.info("settled %d row keys in %.2f s", moved, time.perf_counter() - started)

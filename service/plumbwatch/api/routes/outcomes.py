@@ -10,6 +10,7 @@ from plumbwatch.api.deps import PrincipalDep, SettingsDep
 from plumbwatch.api.responses import JsonResponse
 from plumbwatch.api.routes._ingest import active_model, rows_of, shape, write
 from plumbwatch.api.schemas import OUTCOMES_CREATE, OutcomesRead, body, errors
+from plumbwatch.store import keys
 from plumbwatch.store.ingest import write_outcomes
 from plumbwatch.validation import validate_outcomes
 
@@ -42,10 +43,16 @@ async def post_outcomes(
         now_us=now_us,
         future_tolerance_us=settings.future_tolerance_micros,
     )
+    hashes = keys.id_hashes(r.client_id for r in rows)  # here, not on the writer thread
     result = await write(
         request,
         lambda conn: write_outcomes(
-            conn, model_id=monitored.id, rows=rows, now_us=now_us, correction=correction
+            conn,
+            model_id=monitored.id,
+            rows=rows,
+            now_us=now_us,
+            correction=correction,
+            hashes=hashes,
         ),
         len(rows),
     )

@@ -8,6 +8,7 @@ from plumbwatch.api.deps import PrincipalDep, SettingsDep
 from plumbwatch.api.responses import JsonResponse
 from plumbwatch.api.routes._ingest import active_model, rows_of, shape, write
 from plumbwatch.api.schemas import PREDICTIONS_CREATE, PredictionsRead, body, errors
+from plumbwatch.store import keys
 from plumbwatch.store.ingest import write_predictions
 from plumbwatch.validation import validate_predictions
 
@@ -38,9 +39,12 @@ async def post_predictions(
             now_us - settings.retention_days * 86_400_000_000 if settings.retention_days else None
         ),
     )
+    hashes = keys.id_hashes(r.client_id for r in rows)  # here, not on the writer thread
     result = await write(
         request,
-        lambda conn: write_predictions(conn, model_id=monitored.id, rows=rows, now_us=now_us),
+        lambda conn: write_predictions(
+            conn, model_id=monitored.id, rows=rows, now_us=now_us, hashes=hashes
+        ),
         len(rows),
     )
     return JsonResponse({"accepted": result.accepted, "duplicates": result.duplicates + repeats})
