@@ -169,10 +169,11 @@ class Deltas:
         for (key, i), c in zip(self.keys.items(), counts.tolist(), strict=True):
             base = buckets.get(key) or Bucket(empty_sketch(k))
             sketch = base.sketch
-            if adds[i] is not None:
-                sketch = sketch + adds[i]
-            if subs[i] is not None:
-                sketch = sketch - subs[i]
+            add, sub = adds.get(i), subs.get(i)
+            if add is not None:
+                sketch = sketch + add
+            if sub is not None:
+                sketch = sketch - sub
             out[key] = Bucket(sketch, base.matured + c[0], base.late + c[1], base.unlabelled + c[2])
         return out
 
@@ -209,15 +210,16 @@ def _grouped(
     entries: tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64]],
     n: int,
     n_classes: int = 0,
-) -> list[Any]:
+) -> dict[int, Any]:
+    """Sketch of each bucket index that has entries."""
     g, ps, ys = entries
     if not g.size:
-        return [None] * n
+        return {}
     if n_classes:
-        return multiclass.grouped(g, ps, ys.astype(np.int64), n, n_classes)
-    sketches = Sketch.from_arrays_grouped(ys, ps, g, n)
-    present = np.bincount(g, minlength=n) > 0
-    return [s if present[i] else None for i, s in enumerate(sketches)]
+        grouped = multiclass.grouped(g, ps, ys.astype(np.int64), n, n_classes)
+        return {i: s for i, s in enumerate(grouped) if s is not None}
+    # Sparse: a run's few thousand rows touch thousands of buckets, a few bins each.
+    return dict(Sketch.from_arrays_by_group(ys, ps, g))
 
 
 def _rows(conn: sa.Connection, query: sa.Select[Any]) -> Iterator[Any]:

@@ -46,6 +46,24 @@ class Bucket:
         )
 
 
+def sum_buckets(buckets: Iterable[Bucket], n_classes: int = 0) -> Bucket:
+    """The sum of ``buckets``: bin by bin the additions of folding them with ``+``
+    from an empty bucket, in one accumulator instead of a new sketch per step."""
+    items = list(buckets)
+    if n_classes:
+        sketch = empty_sketch(n_classes)
+        for b in items:
+            sketch = sketch + b.sketch
+    else:
+        sketch = Sketch.sum(b.sketch for b in items)
+    return Bucket(
+        sketch,
+        sum(b.matured for b in items),
+        sum(b.late for b in items),
+        sum(b.unlabelled for b in items),
+    )
+
+
 @dataclass(frozen=True)
 class Cursor:
     as_of_us: int
