@@ -204,7 +204,8 @@ def test_column_form_gives_the_dense_results_exactly(r1, r2) -> None:  # type: i
         assert (x + y).to_bytes() == both.to_bytes()
     assert (ca + cb) - cb == both - b
     assert ((ca + cb) - cb).to_bytes() == (both - b).to_bytes()
-    assert Sketch.sum([ca, b, cb]) == Sketch.sum([a, b, b])
+    assert Sketch.sum([ca, b, cb]) == (a + b) + b
+    assert ca + Sketch.from_bytes(a.to_bytes()) == a + a  # no new bins
     for name in FIELDS:
         assert ca.total(name) == a.total(name)
     assert (ca.n, ca.events, ca.is_empty) == (a.n, a.events, a.is_empty)

@@ -303,6 +303,24 @@ def collect(
         .where(p.model_id == model_id, p.id <= p1)
     )
     known: dict[tuple[int | None, bool], RowState] = {}
+
+    def state_of(at: int, outcome: int | None, observed: int | None) -> RowState:
+        """``classify``, looked up by (outcome, observed within the horizon)."""
+        if outcome is None or observed is None:
+            key: tuple[int | None, bool] = (None, False)
+        else:
+            key = (outcome, observed <= at + horizon_us)
+        after = known.get(key)
+        if after is None:
+            after = known[key] = classify(
+                outcome=outcome,
+                observed_at_us=observed,
+                predicted_at_us=at,
+                horizon_us=horizon_us,
+                missing_negative=missing_negative,
+            )
+        return after
+
     # 1. Matured since the last run, and 2. received since then although already matured.
     for query in (
         joined.where(p.predicted_at_us > f0, p.predicted_at_us <= f1).order_by(
@@ -313,20 +331,7 @@ def collect(
         # The bulk of a first run or a rebuild: plain tuples, the state looked up by
         # (outcome, observed within the horizon) instead of classified row by row.
         for _, at, prob, version, segments, outcome, observed in _tuples(conn, query):
-            if outcome is None or observed is None:
-                key: tuple[int | None, bool] = (None, False)
-            else:
-                key = (outcome, observed <= at + horizon_us)
-            after = known.get(key)
-            if after is None:
-                after = known[key] = classify(
-                    outcome=outcome,
-                    observed_at_us=observed,
-                    predicted_at_us=at,
-                    horizon_us=horizon_us,
-                    missing_negative=missing_negative,
-                )
-            deltas.add_new(version, at, segments, prob, after)
+            deltas.add_new(version, at, segments, prob, state_of(at, outcome, observed))
             if flush is not None and deltas.rows >= flush[0]:
                 flush[1]()
     if previous is None:
@@ -338,14 +343,14 @@ def collect(
         .select_from(outcomes.join(predictions, p.id == o.prediction_id))
         .where(o.model_id == model_id, o.id > o0, applied)
     )
-    for row in _rows(conn, new_outcomes):
+    for at, prob, version, segments, outcome, observed in _tuples(conn, new_outcomes):
         deltas.add_row(
-            version=row.version,
-            predicted_at_us=row.predicted_at_us,
-            segments=row.segments,
-            p=row[1],  # prob_col
-            before=state(row, None, None),
-            after=state(row, row.outcome, row.observed_at_us),
+            version=version,
+            predicted_at_us=at,
+            segments=segments,
+            p=prob,
+            before=state_of(at, None, None),
+            after=state_of(at, outcome, observed),
         )
     # 3b. Corrections of outcomes applied before: the earliest revision since the cursor
     # holds the value that was applied; the outcome row holds the value now.

@@ -79,6 +79,9 @@ _NONNEGATIVE = (
 )
 _INTEGRAL = ("count", "sum_y", "falsified")
 _INTEGRAL_ROWS = [FIELDS.index(name) for name in _INTEGRAL]
+# Flat cell index of (field, bin) in an (11, N_BINS) matrix: field offset + bin.
+_FIELD_OFFSETS = (np.arange(len(FIELDS)) * grid.N_BINS)[:, None]
+_ALL_CELLS = np.arange(len(FIELDS) * grid.N_BINS)
 _FORMAT_VERSION = 1
 _CHUNK = 1 << 18
 _EPS = float(np.finfo(np.float64).eps)
@@ -348,10 +351,16 @@ class Sketch:
         # Bin by bin the same additions whatever the forms: a bin held by one
         # side only keeps its value (x + 0 == x).
         if self._is_columns() and other._is_columns():
-            a_idx, b_idx = self._columns()[0], other._columns()[0]
-            idx = np.union1d(a_idx, b_idx)
-            out = self._at(idx)
-            out[:, np.searchsorted(idx, b_idx)] += other._columns()[1]
+            (a_idx, a_vals), (b_idx, b_vals) = self._columns(), other._columns()
+            pos = np.searchsorted(a_idx, b_idx)
+            if pos.size and pos[-1] < a_idx.size and np.array_equal(a_idx[pos], b_idx):
+                # The usual update of a day bucket: no new bins.
+                idx, out = a_idx, a_vals.copy()
+            else:
+                idx = np.union1d(a_idx, b_idx)
+                out = self._at(idx)
+                pos = np.searchsorted(idx, b_idx)
+            out[:, pos] += b_vals
             return Sketch._from_columns(idx, out)
         if other._is_columns():
             dense, sparse = self, other
@@ -399,15 +408,25 @@ class Sketch:
     def sum(sketches: Iterable[Sketch]) -> Sketch:
         """Merge any number of sketches (an empty iterable gives the empty sketch).
 
-        The bins add in the order given, as repeated ``+`` would."""
-        total = np.zeros((len(FIELDS), grid.N_BINS))
+        Each bin adds its values in the order given, as repeated ``+`` would: one
+        ``np.bincount`` over all occupied (field, bin) cells, which sums each output
+        cell in input order.
+        """
+        keys: list[NDArray[np.intp]] = []
+        weights: list[FloatArray] = []
         for s in sketches:
             if s._is_columns():
                 idx, vals = s._columns()
-                total[:, idx] += vals
+                keys.append((_FIELD_OFFSETS + idx).ravel())
+                weights.append(vals.ravel())
             else:
-                total += s._matrix()
-        return Sketch._from_matrix(total)
+                keys.append(_ALL_CELLS)
+                weights.append(s._matrix().ravel())
+        size = len(FIELDS) * grid.N_BINS
+        if not keys:
+            return Sketch._from_matrix(np.zeros((len(FIELDS), grid.N_BINS)))
+        total = np.bincount(np.concatenate(keys), np.concatenate(weights), minlength=size)
+        return Sketch._from_matrix(total.reshape(len(FIELDS), grid.N_BINS))
 
     # -- totals -------------------------------------------------------------
 
