@@ -214,3 +214,27 @@ def test_column_form_gives_the_dense_results_exactly(r1, r2) -> None:  # type: i
             _ = ca - (ca + cb)
     assert ca == a and np.array_equal(ca.count, a.count)
     assert (Sketch.empty() + ca) == a and Sketch.empty().to_bytes() == Sketch.sum([]).to_bytes()
+
+
+@settings(deadline=None, max_examples=60)
+@given(rows(), rows(), rows())
+def test_replace_bins_rebuilds_an_updated_sketch(r1, r2, r3) -> None:  # type: ignore[no-untyped-def]
+    # A stored sketch, then the new values of the bins an update changed (empty
+    # bins included), give the updated sketch bit for bit.
+    base, add, sub = sk(r1), sk(r2), sk(r3)
+    stored = Sketch.from_bytes((base + sub).to_bytes())
+    updated = (stored + add) - sub
+    changed = np.union1d(Sketch.from_bytes(add.to_bytes())._columns()[0], sub._columns()[0])
+    patch = Sketch.from_bytes(updated.to_bytes(bins=changed))
+    assert patch._columns()[0].tolist() == changed.tolist()
+    rebuilt = stored.replace_bins(patch)
+    assert rebuilt == updated and rebuilt.to_bytes() == updated.to_bytes()
+    assert Sketch.from_bytes(base.to_bytes()).replace_bins(Sketch.empty()) == base
+
+
+def test_bins_argument_is_checked() -> None:
+    s = Sketch.from_arrays([1, 0], [0.2, 0.7])
+    with pytest.raises(ValueError, match="bins"):
+        s.to_bytes(bins=[3, 2])
+    with pytest.raises(ValueError, match="bins"):
+        s.to_bytes(bins=[grid.N_BINS])

@@ -170,11 +170,23 @@ class Deltas:
             base = buckets.get(key) or Bucket(empty_sketch(k))
             sketch = base.sketch
             add, sub = adds.get(i), subs.get(i)
+            changed = base.changed  # bins that may differ from the stored sketch
             if add is not None:
                 sketch = sketch + add
             if sub is not None:
                 sketch = sketch - sub
-            out[key] = Bucket(sketch, base.matured + c[0], base.late + c[1], base.unlabelled + c[2])
+            if changed is not None:
+                moved = [s.held_bins() for s in (add, sub) if s is not None]
+                if moved:
+                    changed = np.union1d(changed, np.concatenate(moved))
+            out[key] = Bucket(
+                sketch,
+                base.matured + c[0],
+                base.late + c[1],
+                base.unlabelled + c[2],
+                changed,
+                base.patched,
+            )
         return out
 
 

@@ -221,6 +221,20 @@ class Sketch:
         out[:, np.searchsorted(idx, own)] = vals
         return out
 
+    def _values_at(self, bins: NDArray[np.intp]) -> FloatArray:
+        """The fields at any ascending unique ``bins`` (zeros where empty): (11, len(bins))."""
+        m: FloatArray | None = self.__dict__.get("_m")
+        if m is not None:
+            out: FloatArray = m[:, bins]
+            return out
+        own, vals = self.__dict__["_cols"]
+        out = np.zeros((len(FIELDS), bins.size))
+        if own.size and bins.size:
+            pos = np.minimum(np.searchsorted(own, bins), own.size - 1)
+            hit = own[pos] == bins
+            out[:, hit] = vals[:, pos[hit]]
+        return out
+
     def _is_columns(self) -> bool:
         return "_m" not in self.__dict__ and "_cols" in self.__dict__
 
@@ -425,8 +439,35 @@ class Sketch:
         size = len(FIELDS) * grid.N_BINS
         if not keys:
             return Sketch._from_matrix(np.zeros((len(FIELDS), grid.N_BINS)))
-        total = np.bincount(np.concatenate(keys), np.concatenate(weights), minlength=size)
+        total: FloatArray = np.bincount(
+            np.concatenate(keys), np.concatenate(weights), minlength=size
+        ).astype(np.float64, copy=False)
         return Sketch._from_matrix(total.reshape(len(FIELDS), grid.N_BINS))
+
+    def held_bins(self) -> NDArray[np.intp]:
+        """Ascending indices of the bins this sketch holds: the occupied ones, plus
+        any empty bins a decoded patch carries (see ``to_bytes(bins=...)``)."""
+        return self._columns()[0]
+
+    def replace_bins(self, other: Sketch) -> Sketch:
+        """This sketch with every bin that ``other`` holds taken from ``other``.
+
+        ``other`` is read in column form, empty columns included (as
+        :meth:`to_bytes` with ``bins`` writes them): a stored bucket plus the later
+        values of the bins a run changed make the current bucket, bit for bit.
+        """
+        if not isinstance(other, Sketch):
+            raise TypeError(f"other: expected a Sketch, got {type(other).__name__}")
+        new_idx, new_vals = other._columns()
+        idx, vals = self._columns()
+        both = np.union1d(idx, new_idx)
+        out = np.zeros((len(FIELDS), both.size))
+        out[:, np.searchsorted(both, idx)] = vals
+        out[:, np.searchsorted(both, new_idx)] = new_vals  # the later values win
+        occupied = out.any(axis=0)
+        if occupied.all():
+            return Sketch._from_columns(both, out)
+        return Sketch._from_columns(both[occupied], np.ascontiguousarray(out[:, occupied]))
 
     # -- totals -------------------------------------------------------------
 
@@ -484,15 +525,25 @@ class Sketch:
 
     # -- serialisation ------------------------------------------------------
 
-    def to_bytes(self, *, compress: bool = False) -> bytes:
+    def to_bytes(self, *, compress: bool = False, bins: ArrayLike | None = None) -> bytes:
         """Compact binary form; see the module docstring for the layout.
 
         ``compress=True`` zlib-compresses the body when that makes it smaller.
+        ``bins`` (ascending bin indices) stores exactly those bins, empty ones
+        included: the changed bins of a bucket, for :meth:`replace_bins`.
         """
-        idx, sub = self._columns()
-        kept = sub.any(axis=0)
-        if not kept.all():
-            idx, sub = idx[kept], sub[:, kept]
+        if bins is None:
+            idx, sub = self._columns()
+            kept = sub.any(axis=0)
+            if not kept.all():
+                idx, sub = idx[kept], sub[:, kept]
+        else:
+            idx = np.asarray(bins, dtype=np.intp)
+            if idx.ndim != 1 or (idx.size and (idx[0] < 0 or idx[-1] >= grid.N_BINS)):
+                raise ValueError(f"bins: expected bin indices in [0, {grid.N_BINS}), got others")
+            if (idx[1:] <= idx[:-1]).any():
+                raise ValueError("bins: expected ascending unique bin indices, got others")
+            sub = self._values_at(idx)
         ints = sub[_INTEGRAL_ROWS]
         integral = bool(
             idx.size == 0
