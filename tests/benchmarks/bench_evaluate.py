@@ -1,9 +1,9 @@
-"""Evaluation engine report: full recompute, rebuild, incremental run, reads, sizes.
+"""Evaluation engine report: full recompute, rebuild, incremental runs, reads, sizes.
 
 Run from the repository root::
 
     .venv/bin/python tests/benchmarks/bench_evaluate.py [--engine sqlite|postgresql|both]
-        [--rows N] [--profile DIR]
+        [--rows N] [--repeat K] [--loader ingest|direct] [--profile DIR]
 
 Per engine, in a fresh database (a SQLite file under a temporary directory, or a
 fresh schema on PostgreSQL), migrated through ``plumbwatch migrate``:
@@ -12,25 +12,29 @@ fresh schema on PostgreSQL), migrated through ``plumbwatch migrate``:
    no crosses (102 slices, slice cap 100), label horizon P3D, windows P7D and
    P28D. N predictions with random UUID ids, spread over 28 days and sent in time
    order, and their outcomes (about 2 % observed after the horizon, 1 % never
-   labelled) are loaded through ``store.ingest.write_predictions`` and
-   ``write_outcomes`` in 100,000-row transactions (each chunk's predictions, then
-   its outcomes), settling the key tier whenever it holds 1,000,000 keys and at
-   the end. So rows and row keys are exactly those the API would store.
-   10,000 of the predictions get no outcome yet.
+   labelled) are loaded in 100,000-row transactions (each chunk's predictions,
+   then its outcomes), settling the key tier whenever it holds 1,000,000 keys and
+   at the end. ``--loader ingest`` (default) writes through
+   ``store.ingest.write_predictions`` and ``write_outcomes``, so rows and row keys
+   are exactly those the API would store; ``--loader direct`` writes the same rows
+   and keys with the store's bulk primitives (``keys.allocate_ids``,
+   ``keys.insert_rows``, ``keys.add``) and skips the ingest path's look-ups of
+   existing ids, several times faster for 10,000,000 rows. K x 10,000 of the
+   predictions get no outcome yet.
 2. The first evaluation (``jobs.tick.Evaluator``, as_of one second after every
-   cohort matured) is the full recompute from raw rows; then
+   cohort matured) is the full recompute from raw rows: every metric of every
+   slice and window from the raw rows, as a fresh deployment computes them; then
    ``evaluate.rebuild.rebuild_model``. Both run in a child process so that their
-   peak RSS (VmHWM of ``/proc/self/status``) is their own.
-3. The 10,000 withheld outcomes are written through ``write_outcomes`` and the
-   next evaluation (as_of one hour later) is timed, also in a child process.
+   peak RSS (VmHWM of ``/proc/self/status``) and CPU time are their own.
+3. K times (``--repeat``, default 1): 10,000 of the withheld outcomes, drawn at
+   random (so spread over all days and slices), are written through
+   ``write_outcomes`` and the next evaluation (as_of one more hour later) is
+   timed, also in a child process; the median wall and CPU seconds are reported
+   with each run's load average (the machine is shared: compare CPU seconds).
 4. ``plumbwatch serve`` runs as a subprocess; the median of 20 calls each of
    ``GET /status`` and ``GET /metrics`` for two ranges whose bounds fall inside
    days is reported.
 5. Table sizes: ``dbstat`` on SQLite, ``pg_total_relation_size`` on PostgreSQL.
-
-The default N is 1,000,000: loading through the ingest functions runs at about
-10,000 predictions (with their outcomes) per second on the 2-core reference
-machine, so 10,000,000 rows would take about 17 minutes to load per engine.
 
 This is a report, not a test: it asserts nothing. ``--profile DIR`` writes a
 cProfile of each child step there.
