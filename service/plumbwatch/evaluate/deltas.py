@@ -29,7 +29,7 @@ from numpy.typing import NDArray
 from plumbwatch.evaluate import multiclass
 from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify, day_of
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
-from plumbwatch.stats.sketch import Sketch
+from plumbwatch.stats.sketch import Sketch, merge_bins
 from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
 from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
 
@@ -178,7 +178,7 @@ class Deltas:
             if changed is not None:
                 moved = [s.held_bins() for s in (add, sub) if s is not None]
                 if moved:
-                    changed = np.union1d(changed, np.concatenate(moved))
+                    changed = merge_bins(changed, *moved)
             out[key] = Bucket(
                 sketch,
                 base.matured + c[0],
