@@ -437,26 +437,35 @@ class Sketch:
     def sum(sketches: Iterable[Sketch]) -> Sketch:
         """Merge any number of sketches (an empty iterable gives the empty sketch).
 
-        Each bin adds its values in the order given, as repeated ``+`` would: one
-        ``np.bincount`` over all occupied (field, bin) cells, which sums each output
-        cell in input order.
+        Each bin adds its values in the order given, as repeated ``+`` would. Dense
+        sketches add whole; each run of sketches in column form is one
+        ``np.bincount`` over their occupied (field, bin) cells, after the total so
+        far, which sums each output cell in input order.
         """
+        size = len(FIELDS) * grid.N_BINS
+        total: FloatArray = np.zeros(size)
         keys: list[NDArray[np.intp]] = []
         weights: list[FloatArray] = []
+
+        def add_pending() -> FloatArray:
+            summed: FloatArray = np.bincount(
+                np.concatenate([_ALL_CELLS, *keys]), np.concatenate([total, *weights]), size
+            ).astype(np.float64, copy=False)
+            keys.clear()
+            weights.clear()
+            return summed
+
         for s in sketches:
             if s._is_columns():
                 idx, vals = s._columns()
                 keys.append((_FIELD_OFFSETS + idx).ravel())
                 weights.append(vals.ravel())
             else:
-                keys.append(_ALL_CELLS)
-                weights.append(s._matrix().ravel())
-        size = len(FIELDS) * grid.N_BINS
-        if not keys:
-            return Sketch._from_matrix(np.zeros((len(FIELDS), grid.N_BINS)))
-        total: FloatArray = np.bincount(
-            np.concatenate(keys), np.concatenate(weights), minlength=size
-        ).astype(np.float64, copy=False)
+                if keys:
+                    total = add_pending()
+                total += s._matrix().ravel()
+        if keys:
+            total = add_pending()
         return Sketch._from_matrix(total.reshape(len(FIELDS), grid.N_BINS))
 
     def held_bins(self) -> NDArray[np.intp]:
