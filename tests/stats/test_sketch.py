@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from plumbwatch.stats import grid
-from plumbwatch.stats.sketch import FIELDS, Sketch
+from plumbwatch.stats.sketch import FIELDS, Sketch, merge_bins
 
 
 def rows(min_size: int = 0, max_size: int = 60) -> st.SearchStrategy[tuple[list[int], list[float]]]:
@@ -238,3 +238,14 @@ def test_bins_argument_is_checked() -> None:
         s.to_bytes(bins=[3, 2])
     with pytest.raises(ValueError, match="bins"):
         s.to_bytes(bins=[grid.N_BINS])
+
+
+@settings(deadline=None, max_examples=60)
+@given(
+    st.lists(st.integers(0, grid.N_BINS - 1), max_size=40),
+    st.lists(st.integers(0, grid.N_BINS - 1), max_size=40),
+)
+def test_merge_bins_is_the_sorted_union(a: list[int], b: list[int]) -> None:
+    # Reference: numpy's union1d.
+    x, y = np.unique(np.array(a, np.intp)), np.unique(np.array(b, np.intp))
+    assert merge_bins(x, y).tolist() == np.union1d(x, y).tolist()
