@@ -108,10 +108,11 @@ def _smooth_ece_points(points: _Points, sigma: float) -> float:
     # Mirror images about 0 and about 1, as far out as the kernel reaches (at most
     # one full image each side): nodes at -half*h .. 1 + half*h.
     ext = np.concatenate([values[:, half:0:-1], values, values[:, -2 : -2 - half : -1]], axis=1)
-    # Linear convolution by FFT (zero-padded, so no wrap-around); output node i
-    # of [0, 1] is ext node i + half, i.e. full-convolution index i + 2 * half.
-    size = ext.shape[1] + kernel.size - 1
-    n_fft = sp_fft.next_fast_len(size, real=True)
+    # Convolution by FFT; output node i of [0, 1] is ext node i + half, i.e.
+    # full-convolution index i + 2 * half. A circular transform of length >= the
+    # length of ext wraps only the outputs outside [0, 1] (which are dropped), so
+    # it needs no padding for the kernel's width.
+    n_fft = sp_fft.next_fast_len(ext.shape[1], real=True)
     spectrum = sp_fft.rfft(ext, n_fft, axis=1) * sp_fft.rfft(kernel, n_fft)
     conv = sp_fft.irfft(spectrum, n_fft, axis=1)[:, 2 * half : 2 * half + n_nodes]
     r = conv[0] / points.total
