@@ -124,23 +124,34 @@ def _fixed_point(points: _Points) -> tuple[float, float, bool]:
     def gap(s: float) -> float:
         return points.smooth_ece(s) - s
 
-    # Small σ needs many grid nodes (h <= σ/40), so the bracket starts at 0.01 and
-    # only falls back to the floor when the root lies below it.
-    # smECE_σ <= 1 for every σ (|y - f| <= 1), so gap(1) <= 0: halve σ from 0.01
-    # until the gap turns positive, which brackets the root without touching the
-    # costly small bandwidths unless the root is there.
-    low, high = _FIRST_LOW, 1.0
-    while gap(low) <= 0.0:
-        if low <= SIGMA_MIN:
-            # Calibrated to within the floor: report the value at the floor.
-            return points.smooth_ece(SIGMA_MIN), SIGMA_MIN, False
-        low, high = max(low / 2.0, SIGMA_MIN), low
-    if high == 1.0:
-        # smECE_σ usually falls as σ grows, so the root then lies below smECE at the
-        # low end; one evaluation checks that and narrows a [0.01, 1] bracket.
-        guess = points.smooth_ece(low)
-        if low < guess < high and gap(guess) <= 0.0:
-            high = guess
+    # smECE_σ usually falls as σ grows, so one fixed-point step from σ0 lands on the
+    # other side of the root: σ1 = smECE_σ0 > σ0 gives smECE_σ1 <= smECE_σ0 = σ1,
+    # and σ1 < σ0 gives smECE_σ1 >= σ1. That brackets the root closely with two
+    # evaluations, and small σ (many grid nodes, h <= σ/40) is only evaluated when
+    # the root is there. Where the step does not bracket, fall back to halving σ
+    # from 0.01 (or to [0.01, 1]); smECE_σ <= 1 for every σ, so gap(1) <= 0.
+    first = _FIRST_LOW
+    g0 = gap(first)
+    if g0 == 0.0:
+        return first, first, True
+    step = min(max(first + g0, SIGMA_MIN), 1.0)
+    g1 = gap(step)
+    if g0 > 0.0 and g1 <= 0.0:
+        low, high = first, step
+    elif g0 < 0.0 and g1 >= 0.0:
+        low, high = step, first
+    elif g0 > 0.0:
+        low, high = first, 1.0
+    else:
+        low, high = first, first
+        while gap(low) <= 0.0:
+            if low <= SIGMA_MIN:
+                # Calibrated to within the floor: report the value at the floor.
+                return points.smooth_ece(SIGMA_MIN), SIGMA_MIN, False
+            low, high = max(low / 2.0, SIGMA_MIN), low
+    if gap(low) == 0.0 or gap(high) == 0.0:
+        sigma = low if gap(low) == 0.0 else high
+        return points.smooth_ece(sigma), sigma, True
     # xtol 1e-6: at the fixed point the value equals σ, so this is its precision too.
     sigma = float(optimize.brentq(gap, low, high, xtol=1e-6, rtol=1e-6))
     return points.smooth_ece(sigma), sigma, True
