@@ -190,13 +190,16 @@ def _sum(
         if w.first_day <= day < w.end_day:
             per_slice[name].append(b)
             per_version[(version, name)].append(b)
-    overall = {name: sum_buckets(bs, n_classes) for name, bs in per_slice.items()}
+    # As before: a slice or version missing from the window reads as an empty bucket.
+    overall: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
+    by_version: dict[tuple[str, str], Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
+    overall.update((name, sum_buckets(bs, n_classes)) for name, bs in per_slice.items())
     # With one version its sums are the slices' sums: the same buckets in the same order.
     single = len({v for v, _ in per_version}) == 1
-    by_version = {
-        key: overall[key[1]] if single else sum_buckets(bs, n_classes)
+    by_version.update(
+        (key, overall[key[1]] if single else sum_buckets(bs, n_classes))
         for key, bs in per_version.items()
-    }
+    )
     return overall, by_version
 
 
