@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from plumbwatch.stats import grid
-from plumbwatch.stats.sketch import FIELDS, Sketch
+from plumbwatch.stats.sketch import FIELDS, Sketch, merge_bins
 
 
 def rows(min_size: int = 0, max_size: int = 60) -> st.SearchStrategy[tuple[list[int], list[float]]]:
@@ -72,6 +72,35 @@ def test_grouped_equals_separate(simulate) -> None:  # type: ignore[no-untyped-d
     assert Sketch.sum(many).allclose(Sketch.from_arrays(y, p), rtol=1e-12)
 
 
+def test_by_group_equals_grouped_bit_for_bit(simulate) -> None:  # type: ignore[no-untyped-def]
+    # Each (group, bin) cell adds its rows in row order in both builders, so the
+    # sparse one must give exactly the dense one's sums, and leave out empty groups.
+    y, p = simulate(5000, 9)
+    p[:3] = [0.0, 1.0, 0.3]  # a falsified row and an equal-width edge
+    g = np.random.default_rng(9).choice([0, 2, 5, 11], 5000)
+    w = np.random.default_rng(10).random(5000)
+    for weights in (None, w):
+        dense = Sketch.from_arrays_grouped(y, p, g, 12, sample_weight=weights)
+        sparse = Sketch.from_arrays_by_group(y, p, g, sample_weight=weights)
+        assert sorted(sparse) == [0, 2, 5, 11]
+        for k, s in sparse.items():
+            assert s == dense[k]
+    assert Sketch.from_arrays_by_group([], [], np.zeros(0, np.int64)) == {}
+    with pytest.raises(ValueError, match="group_ids"):
+        Sketch.from_arrays_by_group([0, 1], [0.1, 0.2], [0, -1])
+    with pytest.raises(ValueError, match="group_ids"):
+        Sketch.from_arrays_by_group([0, 1], [0.1, 0.2], [0.0, 1.0])
+
+
+def test_sketch_fields_are_read_only_views(simulate) -> None:  # type: ignore[no-untyped-def]
+    y, p = simulate(200, 11)
+    for s in (Sketch.from_arrays(y, p), Sketch.from_arrays(y, p) + Sketch.empty()):
+        with pytest.raises(ValueError, match="read-only"):
+            s.count[0] = 1.0
+    built = Sketch(**{name: np.ones(grid.N_BINS) for name in FIELDS})
+    assert (built + built).count[0] == 2.0
+
+
 @pytest.mark.parametrize(
     ("y", "p", "match"),
     [
@@ -106,6 +135,19 @@ def test_serialised_size_beats_raw_rows(simulate) -> None:  # type: ignore[no-un
         blob = Sketch.from_arrays(y, p).to_bytes()
         assert len(blob) < 100 * n
     assert len(Sketch.empty().to_bytes()) < 40
+
+
+def test_compressed_and_plain_forms_decode_alike(simulate) -> None:  # type: ignore[no-untyped-def]
+    y, p = simulate(3000, 12)
+    for s in (Sketch.from_arrays(y, p), Sketch.from_arrays(y, p, sample_weight=np.full(3000, 0.5))):
+        plain, packed = s.to_bytes(), s.to_bytes(compress=True)
+        assert packed[1] & 1 and not plain[1] & 1
+        assert Sketch.from_bytes(plain) == s and Sketch.from_bytes(packed) == s
+    blob = Sketch.from_arrays(y, p).to_bytes()
+    with pytest.raises(ValueError, match="bytes"):
+        Sketch.from_bytes(blob[:-1])
+    with pytest.raises(ValueError, match="bytes"):
+        Sketch.from_bytes(blob[:5])
 
 
 def test_from_bytes_rejects_garbage() -> None:
@@ -146,3 +188,64 @@ def test_subtract_after_add(r1, r2) -> None:  # type: ignore[no-untyped-def]
 def test_bytes_round_trip(r) -> None:  # type: ignore[no-untyped-def]
     s = sk(r)
     assert Sketch.from_bytes(s.to_bytes()) == s
+
+
+@settings(deadline=None, max_examples=60)
+@given(rows(), rows())
+def test_column_form_gives_the_dense_results_exactly(r1, r2) -> None:  # type: ignore[no-untyped-def]
+    # Decoded sketches hold their occupied bins only; every operation must give
+    # bit for bit what the dense form gives.
+    a, b = sk(r1), sk(r2)
+    ca, cb = Sketch.from_bytes(a.to_bytes()), Sketch.from_bytes(b.to_bytes())
+    assert ca._is_columns() and not a._is_columns()
+    both = a + b
+    for x, y in ((ca, cb), (a, cb), (ca, b)):
+        assert x + y == both
+        assert (x + y).to_bytes() == both.to_bytes()
+    assert (ca + cb) - cb == both - b
+    assert ((ca + cb) - cb).to_bytes() == (both - b).to_bytes()
+    assert Sketch.sum([ca, b, cb]) == (a + b) + b
+    assert ca + Sketch.from_bytes(a.to_bytes()) == a + a  # no new bins
+    for name in FIELDS:
+        assert ca.total(name) == a.total(name)
+    assert (ca.n, ca.events, ca.is_empty) == (a.n, a.events, a.is_empty)
+    if b.n:
+        with pytest.raises(ValueError, match="other"):
+            _ = ca - (ca + cb)
+    assert ca == a and np.array_equal(ca.count, a.count)
+    assert (Sketch.empty() + ca) == a and Sketch.empty().to_bytes() == Sketch.sum([]).to_bytes()
+
+
+@settings(deadline=None, max_examples=60)
+@given(rows(), rows(), rows())
+def test_replace_bins_rebuilds_an_updated_sketch(r1, r2, r3) -> None:  # type: ignore[no-untyped-def]
+    # A stored sketch, then the new values of the bins an update changed (empty
+    # bins included), give the updated sketch bit for bit.
+    base, add, sub = sk(r1), sk(r2), sk(r3)
+    stored = Sketch.from_bytes((base + sub).to_bytes())
+    updated = (stored + add) - sub
+    changed = np.union1d(Sketch.from_bytes(add.to_bytes())._columns()[0], sub._columns()[0])
+    patch = Sketch.from_bytes(updated.to_bytes(bins=changed))
+    assert patch._columns()[0].tolist() == changed.tolist()
+    rebuilt = stored.replace_bins(patch)
+    assert rebuilt == updated and rebuilt.to_bytes() == updated.to_bytes()
+    assert Sketch.from_bytes(base.to_bytes()).replace_bins(Sketch.empty()) == base
+
+
+def test_bins_argument_is_checked() -> None:
+    s = Sketch.from_arrays([1, 0], [0.2, 0.7])
+    with pytest.raises(ValueError, match="bins"):
+        s.to_bytes(bins=[3, 2])
+    with pytest.raises(ValueError, match="bins"):
+        s.to_bytes(bins=[grid.N_BINS])
+
+
+@settings(deadline=None, max_examples=60)
+@given(
+    st.lists(st.integers(0, grid.N_BINS - 1), max_size=40),
+    st.lists(st.integers(0, grid.N_BINS - 1), max_size=40),
+)
+def test_merge_bins_is_the_sorted_union(a: list[int], b: list[int]) -> None:
+    # Reference: numpy's union1d.
+    x, y = np.unique(np.array(a, np.intp)), np.unique(np.array(b, np.intp))
+    assert merge_bins(x, y).tolist() == np.union1d(x, y).tolist()

@@ -29,7 +29,7 @@ from numpy.typing import NDArray
 from plumbwatch.evaluate import multiclass
 from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify, day_of
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
-from plumbwatch.stats.sketch import Sketch
+from plumbwatch.stats.sketch import Sketch, merge_bins
 from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
 from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
 
@@ -169,11 +169,24 @@ class Deltas:
         for (key, i), c in zip(self.keys.items(), counts.tolist(), strict=True):
             base = buckets.get(key) or Bucket(empty_sketch(k))
             sketch = base.sketch
-            if adds[i] is not None:
-                sketch = sketch + adds[i]
-            if subs[i] is not None:
-                sketch = sketch - subs[i]
-            out[key] = Bucket(sketch, base.matured + c[0], base.late + c[1], base.unlabelled + c[2])
+            add, sub = adds.get(i), subs.get(i)
+            changed = base.changed  # bins that may differ from the stored sketch
+            if add is not None:
+                sketch = sketch + add
+            if sub is not None:
+                sketch = sketch - sub
+            if changed is not None:
+                moved = [s.held_bins() for s in (add, sub) if s is not None]
+                if moved:
+                    changed = merge_bins(changed, *moved)
+            out[key] = Bucket(
+                sketch,
+                base.matured + c[0],
+                base.late + c[1],
+                base.unlabelled + c[2],
+                changed,
+                base.patched,
+            )
         return out
 
 
@@ -209,15 +222,16 @@ def _grouped(
     entries: tuple[NDArray[np.intp], NDArray[np.float64], NDArray[np.float64]],
     n: int,
     n_classes: int = 0,
-) -> list[Any]:
+) -> dict[int, Any]:
+    """Sketch of each bucket index that has entries."""
     g, ps, ys = entries
     if not g.size:
-        return [None] * n
+        return {}
     if n_classes:
-        return multiclass.grouped(g, ps, ys.astype(np.int64), n, n_classes)
-    sketches = Sketch.from_arrays_grouped(ys, ps, g, n)
-    present = np.bincount(g, minlength=n) > 0
-    return [s if present[i] else None for i, s in enumerate(sketches)]
+        grouped = multiclass.grouped(g, ps, ys.astype(np.int64), n, n_classes)
+        return {i: s for i, s in enumerate(grouped) if s is not None}
+    # Sparse: a run's few thousand rows touch thousands of buckets, a few bins each.
+    return dict(Sketch.from_arrays_by_group(ys, ps, g))
 
 
 def _rows(conn: sa.Connection, query: sa.Select[Any]) -> Iterator[Any]:
@@ -307,6 +321,24 @@ def collect(
     )
     known: dict[tuple[int | None, bool], RowState] = {}
     lower, upper, observe = watch if watch is not None else (0, -1, None)
+
+    def state_of(at: int, outcome: int | None, observed: int | None) -> RowState:
+        """``classify``, looked up by (outcome, observed within the horizon)."""
+        if outcome is None or observed is None:
+            key: tuple[int | None, bool] = (None, False)
+        else:
+            key = (outcome, observed <= at + horizon_us)
+        after = known.get(key)
+        if after is None:
+            after = known[key] = classify(
+                outcome=outcome,
+                observed_at_us=observed,
+                predicted_at_us=at,
+                horizon_us=horizon_us,
+                missing_negative=missing_negative,
+            )
+        return after
+
     # 1. Matured since the last run, and 2. received since then although already matured.
     for query in (
         joined.where(p.predicted_at_us > f0, p.predicted_at_us <= f1).order_by(
@@ -317,19 +349,7 @@ def collect(
         # The bulk of a first run or a rebuild: plain tuples, the state looked up by
         # (outcome, observed within the horizon) instead of classified row by row.
         for _, at, prob, version, segments, outcome, observed in _tuples(conn, query):
-            if outcome is None or observed is None:
-                key: tuple[int | None, bool] = (None, False)
-            else:
-                key = (outcome, observed <= at + horizon_us)
-            after = known.get(key)
-            if after is None:
-                after = known[key] = classify(
-                    outcome=outcome,
-                    observed_at_us=observed,
-                    predicted_at_us=at,
-                    horizon_us=horizon_us,
-                    missing_negative=missing_negative,
-                )
+            after = state_of(at, outcome, observed)
             deltas.add_new(version, at, segments, prob, after)
             if observe is not None and lower < at <= upper:
                 observe(at, prob, version, segments, after)
@@ -345,14 +365,14 @@ def collect(
         .select_from(outcomes.join(predictions, p.id == o.prediction_id))
         .where(o.model_id == model_id, o.id > o0, applied)
     )
-    for row in _rows(conn, new_outcomes):
+    for at, prob, version, segments, outcome, observed in _tuples(conn, new_outcomes):
         deltas.add_row(
-            version=row.version,
-            predicted_at_us=row.predicted_at_us,
-            segments=row.segments,
-            p=row[1],  # prob_col
-            before=state(row, None, None),
-            after=state(row, row.outcome, row.observed_at_us),
+            version=version,
+            predicted_at_us=at,
+            segments=segments,
+            p=prob,
+            before=state_of(at, None, None),
+            after=state_of(at, outcome, observed),
         )
     # 3b. Corrections of outcomes applied before: the earliest revision since the cursor
     # holds the value that was applied; the outcome row holds the value now.

@@ -14,7 +14,7 @@ import orjson
 import sqlalchemy as sa
 
 from plumbwatch.errors import NotFound
-from plumbwatch.evaluate.cohorts import DAY_US, classify
+from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify
 from plumbwatch.evaluate.immature import frozen_view
 from plumbwatch.evaluate.metrics import slice_metrics
 from plumbwatch.evaluate.slices import OTHER, OVERALL, SliceSpec, ValueCap, parse_slice
@@ -120,23 +120,33 @@ def _raw_bucket(
     ys, ps = [], []
     matured = late = unlabelled = 0
     negative = model.declaration.missing_outcome == "negative"
-    for row in conn.execute(query):
-        segments = orjson.loads(row.segments) if row.segments else {}
-        if slice_name not in spec.names(segments, cap):
+    # A day holds hundreds of thousands of rows but few distinct segment texts and
+    # row states: decide each once (the cap is frozen, so the answer cannot change).
+    inside: dict[str | None, bool] = {}
+    states: dict[tuple[int | None, bool], RowState] = {}
+    for probability, _, segments, at, outcome, observed in conn.execute(query):
+        wanted = inside.get(segments)
+        if wanted is None:
+            parsed = orjson.loads(segments) if segments else {}
+            wanted = inside[segments] = slice_name in spec.names(parsed, cap)
+        if not wanted:
             continue
-        state = classify(
-            outcome=row.outcome,
-            observed_at_us=row.observed_at_us,
-            predicted_at_us=row.predicted_at_us,
-            horizon_us=horizon_us,
-            missing_negative=negative,
-        )
+        known = (outcome, observed <= at + horizon_us) if observed is not None else (outcome, False)
+        state = states.get(known)
+        if state is None:
+            state = states[known] = classify(
+                outcome=outcome,
+                observed_at_us=observed,
+                predicted_at_us=at,
+                horizon_us=horizon_us,
+                missing_negative=negative,
+            )
         matured += 1
         late += state.late
         unlabelled += state.unlabelled
         if state.included:
             ys.append(state.y)
-            ps.append(orjson.loads(row.probability) if k else row.probability)
+            ps.append(orjson.loads(probability) if k else probability)
     if not ys:
         return Bucket(empty_sketch(k), matured, late, unlabelled)
     if k:

@@ -33,7 +33,7 @@ from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.engine import BEGIN_OPTION
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.store.retention import oldest_prediction_us
-from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
+from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch, sum_buckets
 from plumbwatch.timefmt import format_instant, parse_duration
 
 _FLUSH_ROWS = 200_000
@@ -229,12 +229,22 @@ def _sum(
     buckets: dict[BucketKey, Bucket], w: Window, n_classes: int
 ) -> tuple[dict[str, Bucket], dict[tuple[str, str], Bucket]]:
     """Per slice across versions, and per (version, slice), over the window's days."""
-    overall: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
-    by_version: dict[tuple[str, str], Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
+    per_slice: dict[str, list[Bucket]] = defaultdict(list)
+    per_version: dict[tuple[str, str], list[Bucket]] = defaultdict(list)
     for (version, day, name), b in buckets.items():
         if w.first_day <= day < w.end_day:
-            overall[name] = overall[name] + b
-            by_version[(version, name)] = by_version[(version, name)] + b
+            per_slice[name].append(b)
+            per_version[(version, name)].append(b)
+    # As before: a slice or version missing from the window reads as an empty bucket.
+    overall: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
+    by_version: dict[tuple[str, str], Bucket] = defaultdict(lambda: Bucket(empty_sketch(n_classes)))
+    overall.update((name, sum_buckets(bs, n_classes)) for name, bs in per_slice.items())
+    # With one version its sums are the slices' sums: the same buckets in the same order.
+    single = len({v for v, _ in per_version}) == 1
+    by_version.update(
+        (key, overall[key[1]] if single else sum_buckets(bs, n_classes))
+        for key, bs in per_version.items()
+    )
     return overall, by_version
 
 

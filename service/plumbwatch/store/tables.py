@@ -140,6 +140,24 @@ sketches = sa.Table(
     sa.Column("updated_at_us", sa.BigInteger, nullable=False),
 )
 
+# The bins of a stored sketch that later runs changed, with their current values and
+# the bucket's current counts (at most one row per bucket): a run writes only what it
+# changed, not the whole bucket, and folds the row back into `sketches` once it covers
+# a good share of the bucket (see store/sketches.py).
+sketch_patches = sa.Table(
+    "sketch_patches",
+    metadata,
+    sa.Column("model_id", sa.Integer, sa.ForeignKey("monitored_models.id"), primary_key=True),
+    sa.Column("version", sa.String(64), primary_key=True),
+    sa.Column("day", sa.Integer, primary_key=True),
+    sa.Column("slice", sa.String(600), primary_key=True),
+    sa.Column("matured", sa.BigInteger, nullable=False),
+    sa.Column("late", sa.BigInteger, nullable=False),
+    sa.Column("unlabelled", sa.BigInteger, nullable=False),
+    sa.Column("data", sa.LargeBinary, nullable=False),  # Sketch.to_bytes(bins=changed bins)
+    sa.Column("updated_at_us", sa.BigInteger, nullable=False),
+)
+
 # One row per model: how far the incremental evaluation has got.
 evaluation_cursors = sa.Table(
     "evaluation_cursors",
