@@ -2,11 +2,15 @@
 
 from __future__ import annotations
 
+import logging
 import secrets
+import threading
+import time
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 from datetime import UTC, datetime
 
+import sqlalchemy as sa
 from fastapi import FastAPI
 from sqlalchemy.engine import Engine
 from starlette.staticfiles import StaticFiles
@@ -45,6 +49,19 @@ def system_clock_us() -> int:
     return to_micros(datetime.now(UTC))
 
 
+log = logging.getLogger(__name__)
+
+
+def _warm_pages(app: FastAPI) -> None:
+    started = time.perf_counter()
+    try:
+        warmed = pages.warm(app.state.gatherer, app.state.engine)
+    except sa.exc.SQLAlchemyError as exc:  # pages then read on first view, as before
+        log.warning("page warm-up stopped: %s", exc)
+        return
+    log.info("pages warmed for %d models in %.2f s", warmed, time.perf_counter() - started)
+
+
 def create_app(
     settings: Settings,
     *,
@@ -64,9 +81,13 @@ def create_app(
         # Deliveries run whether or not the evaluation scheduler does.
         app.state.alerting.start()
         scheduler = start_scheduler(app.state.evaluator, settings, clock_us)
+        # Off the request path: the first page view after a start finds the history read.
+        warming = threading.Thread(target=_warm_pages, args=(app,), name="warm-pages", daemon=True)
+        warming.start()
         try:
             yield
         finally:
+            warming.join(timeout=10)
             if scheduler is not None:
                 scheduler.shutdown(wait=True)
             app.state.alerting.stop()

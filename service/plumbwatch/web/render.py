@@ -43,5 +43,14 @@ def environment() -> Environment:
     return env
 
 
+def compile_all() -> int:
+    """Compile every template now (a first page view would otherwise pay for it)."""
+    env = environment()
+    names = env.list_templates(filter_func=lambda name: name.endswith(".html"))
+    for name in names:
+        env.get_template(name)
+    return len(names)
+
+
 def render(template: str, **context: Any) -> str:
     return environment().get_template(template).render(**context)

@@ -6,6 +6,7 @@ from __future__ import annotations
 from datetime import UTC, datetime
 from typing import Annotated, Any
 
+import sqlalchemy as sa
 from fastapi import APIRouter, Query, Request
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
@@ -29,6 +30,7 @@ from plumbwatch.store.models import MonitoredModel
 from plumbwatch.timefmt import from_micros, parse_duration
 from plumbwatch.web import views
 from plumbwatch.web.model_page import charts, model_page
+from plumbwatch.web.render import compile_all
 
 router = APIRouter(include_in_schema=False)
 
@@ -108,34 +110,7 @@ def model_detail(
         user.require_read(model)
         with request.app.state.engine.connect() as conn:
             found = store_models.get_or_raise(conn=conn, name=model, include_archived=True)
-            version = history.current_version(conn, model_id=found.id)
-            latest = gather.latest(conn, found)
-            data: dict[str, Any] = {
-                "model": {**_declared(found), "version": version},
-                "record": None,
-                "slice": slice,
-                "window": window,
-                "sort": sort,
-                "dir": dir,
-                "alerts": gather.alerts(conn, model_id=found.id),
-            }
-            if latest is not None:
-                eid, record = latest
-                baseline = gather.baseline(conn, found, eid, record, version)
-                figures = gather.figures(conn, found, eid, record, slice, baseline)
-                trend = gather.trend(conn, found, record)
-                data.update(
-                    record=record,
-                    baseline=baseline,
-                    reliability=figures["reliability"],
-                    distribution=_with_drift(figures["distribution"], record, slice),
-                    coverage=figures["coverage"],
-                    history=_history(trend, record, slice),
-                )
-                # Charts depend on the run and the slice only: drawn once per pair.
-                data["charts"] = gather.cache.get_or_compute(
-                    ("charts", eid, slice, tuple(p.as_of for p in trend)), lambda: charts(data)
-                )
+            data = model_data(gather, conn, found, slice=slice, window=window, sort=sort, dir=dir)
     except PlumbwatchError as exc:
         return domain_error(user, exc)
     view = model_page(data, now=_now(request))
@@ -147,6 +122,60 @@ def model_detail(
         v=view,
         shelve_choices=views.SHELVE_CHOICES,
     )
+
+
+def model_data(
+    gather: Gatherer,
+    conn: sa.Connection,
+    found: MonitoredModel,
+    *,
+    slice: str = "overall",
+    window: str | None = None,
+    sort: str = "health",
+    dir: str = "asc",
+) -> dict[str, Any]:
+    """Everything the model page shows, from the caches where they hold it."""
+    version = history.current_version(conn, model_id=found.id)
+    latest = gather.latest(conn, found)
+    data: dict[str, Any] = {
+        "model": {**_declared(found), "version": version},
+        "record": None,
+        "slice": slice,
+        "window": window,
+        "sort": sort,
+        "dir": dir,
+        "alerts": gather.alerts(conn, model_id=found.id),
+    }
+    if latest is None:
+        return data
+    eid, record = latest
+    baseline = gather.baseline(conn, found, eid, record, version)
+    figures = gather.figures(conn, found, eid, record, slice, baseline)
+    trend = gather.trend(conn, found, record)
+    data.update(
+        record=record,
+        baseline=baseline,
+        reliability=figures["reliability"],
+        distribution=_with_drift(figures["distribution"], record, slice),
+        coverage=figures["coverage"],
+        history=_history(trend, record, slice),
+    )
+    # Charts depend on the run and the slice only: drawn once per pair.
+    data["charts"] = gather.cache.get_or_compute(
+        ("charts", eid, slice, tuple(p.as_of for p in trend)), lambda: charts(data)
+    )
+    return data
+
+
+def warm(gather: Gatherer, engine: sa.Engine) -> int:
+    """Compile the templates and draw each model's page for its overall slice, so the
+    first visitor after a start finds the history read and the charts drawn."""
+    compile_all()
+    with engine.connect() as conn:
+        models = store_models.list_models(conn=conn)
+        for found in models:
+            model_data(gather, conn, found)
+    return len(models)
 
 
 def _with_drift(dist: dict[str, Any] | None, record: dict[str, Any], slice_name: str) -> Any:
