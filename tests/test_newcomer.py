@@ -81,8 +81,14 @@ def test_a_fresh_clone_reaches_the_status_page_with_make_demo(tmp_path: Path) ->
         process.wait(timeout=60)
     finally:
         if process.poll() is None:
-            os.killpg(process.pid, signal.SIGKILL)
-            process.wait(timeout=10)
+            # Ctrl-C first, so the demo stops the server and feed it started in their
+            # own sessions; only then force it.
+            os.killpg(process.pid, signal.SIGINT)
+            try:
+                process.wait(timeout=60)
+            except subprocess.TimeoutExpired:
+                os.killpg(process.pid, signal.SIGKILL)
+                process.wait(timeout=10)
         out.close()
     out.wait_for(r"plumbwatch demo stopped", 5)
     assert (clone / ".venv" / ".installed-run").exists()
