@@ -11,6 +11,7 @@ from __future__ import annotations
 import os
 import uuid
 from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -60,13 +61,9 @@ def postgres_schema_url(schema: str) -> str:
     )
 
 
-@pytest.fixture
-def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str]:
-    """A URL to an empty database of the parametrised kind, removed afterwards."""
-    kind = request.param
-    if kind == "sqlite":
-        yield f"sqlite:///{tmp_path / 'plumbwatch.db'}"
-        return
+@contextmanager
+def postgres_schema() -> Iterator[str]:
+    """A URL to a fresh schema on the test PostgreSQL, dropped afterwards."""
     require_postgres()
     schema = f"t_{uuid.uuid4().hex[:12]}"
     admin = sa.create_engine(POSTGRES_URL)
@@ -78,6 +75,17 @@ def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str
         with admin.begin() as conn:
             conn.execute(sa.text(f'DROP SCHEMA "{schema}" CASCADE'))
         admin.dispose()
+
+
+@pytest.fixture
+def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str]:
+    """A URL to an empty database of the parametrised kind, removed afterwards."""
+    kind = request.param
+    if kind == "sqlite":
+        yield f"sqlite:///{tmp_path / 'plumbwatch.db'}"
+        return
+    with postgres_schema() as url:
+        yield url
 
 
 def pytest_generate_tests(metafunc: pytest.Metafunc) -> None:

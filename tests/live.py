@@ -148,23 +148,10 @@ def database(kind: str, folder: Path) -> Iterator[str]:
     if kind == "sqlite":
         yield f"sqlite:///{folder / 'live.db'}"
         return
-    import uuid
+    from tests.conftest import postgres_schema
 
-    import sqlalchemy as sa
-
-    from tests.conftest import POSTGRES_URL, postgres_schema_url, require_postgres
-
-    require_postgres()
-    schema = f"t_{uuid.uuid4().hex[:12]}"
-    admin = sa.create_engine(POSTGRES_URL)
-    with admin.begin() as conn:
-        conn.execute(sa.text(f'CREATE SCHEMA "{schema}"'))
-    try:
-        yield postgres_schema_url(schema)
-    finally:
-        with admin.begin() as conn:
-            conn.execute(sa.text(f'DROP SCHEMA "{schema}" CASCADE'))
-        admin.dispose()
+    with postgres_schema() as url:
+        yield url
 
 
 @contextmanager

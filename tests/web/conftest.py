@@ -3,16 +3,14 @@ per-test view of it with the hand-built alerts patched in."""
 
 from __future__ import annotations
 
-import uuid
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-import sqlalchemy as sa
 
 from plumbwatch.store.engine import create_engine
 from plumbwatch.store.migrate import upgrade
-from tests.conftest import POSTGRES_URL, postgres_schema_url, require_postgres
+from tests.conftest import postgres_schema
 from tests.web.seed import Seeded, patch_alerts, seeded_service
 
 
@@ -29,17 +27,8 @@ def seeded_engine_url(
     if request.param == "sqlite":
         yield f"sqlite:///{tmp_path_factory.mktemp('pages') / 'pages.db'}"
         return
-    require_postgres()
-    schema = f"t_{uuid.uuid4().hex[:12]}"
-    admin = sa.create_engine(POSTGRES_URL)
-    with admin.begin() as conn:
-        conn.execute(sa.text(f'CREATE SCHEMA "{schema}"'))
-    try:
-        yield postgres_schema_url(schema)
-    finally:
-        with admin.begin() as conn:
-            conn.execute(sa.text(f'DROP SCHEMA "{schema}" CASCADE'))
-        admin.dispose()
+    with postgres_schema() as url:
+        yield url
 
 
 @pytest.fixture(scope="session")
