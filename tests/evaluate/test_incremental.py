@@ -341,3 +341,39 @@ def test_range_metrics_are_exact_at_any_bounds(engine: Engine) -> None:
     assert body["metrics"]["n"] == len(rows)
     assert body["metrics"]["log_loss"] == pytest.approx(log_loss(y, p, labels=[0, 1]), rel=1e-9)
     assert body["metrics"]["brier"] == pytest.approx(brier_score_loss(y, p), rel=1e-9)
+
+
+def test_range_metrics_count_late_and_missing_outcomes_at_inner_bounds(engine: Engine) -> None:
+    from sklearn.metrics import log_loss
+
+    preds, outs = simulate(6, 60, seed=9)
+    # Every 7th outcome comes after the horizon (late), every 11th never comes.
+    for i, o in enumerate(outs):
+        if i % 7 == 0:
+            at = parse_instant(preds[i]["predicted_at"])
+            o["observed_at"] = format_instant(at + timedelta(days=HORIZON_DAYS, hours=1))
+    kept = [o for i, o in enumerate(outs) if i % 11]
+    start, end = T0 + timedelta(days=1, hours=3), T0 + timedelta(days=3, hours=21)
+    with running_service(engine) as svc:
+        svc.put_model("m", model_body())
+        post(svc, preds, kept)
+        evaluate(svc, T0 + timedelta(days=12))
+        r = svc.client.get(
+            "/v1/models/m/metrics",
+            headers=svc.headers("read"),
+            params={"start": format_instant(start), "end": format_instant(end)},
+        )
+        assert r.status_code == 200, r.text
+    metrics = r.json()["metrics"]
+    in_range = [i for i, p in enumerate(preds) if start <= parse_instant(p["predicted_at"]) < end]
+    late = [i for i in in_range if i % 7 == 0 and i % 11]
+    on_time = [i for i in in_range if i % 7 and i % 11]
+    # Hand count from the rules of DESIGN.md: late outcomes are counted, not folded
+    # in; with missing_outcome = wait, unlabelled matured rows are left out.
+    assert metrics["late"] == len(late)
+    assert metrics["n"] == len(on_time)
+    assert metrics["label_coverage"] == pytest.approx(len(on_time) / len(in_range))
+    y = np.array([outs[i]["outcome"] for i in on_time])
+    p = np.array([preds[i]["probability"] for i in on_time])
+    # scikit-learn on exactly the on-time rows in range.
+    assert metrics["log_loss"] == pytest.approx(log_loss(y, p, labels=[0, 1]), rel=1e-9)

@@ -14,7 +14,7 @@ import orjson
 import sqlalchemy as sa
 
 from plumbwatch.errors import NotFound
-from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify
+from plumbwatch.evaluate.cohorts import DAY_US
 from plumbwatch.evaluate.immature import frozen_view
 from plumbwatch.evaluate.metrics import slice_metrics
 from plumbwatch.evaluate.slices import OTHER, OVERALL, SliceSpec, ValueCap, parse_slice
@@ -98,8 +98,17 @@ def _raw_bucket(
         return Bucket(empty_sketch(k))
     p, o = predictions.c, outcomes.c
     prob = (p.probabilities if k else p.probability).label("probability")
+    # The row state needs only whether the outcome came within the horizon: SQL
+    # decides that, so each row crosses the driver as two or three small values.
+    on_time = sa.case(
+        (o.observed_at_us.is_(None), None),
+        (o.observed_at_us <= p.predicted_at_us + horizon_us, 1),
+        else_=0,
+    ).label("on_time")
+    filtered = slice_name != OVERALL  # every row belongs to overall
+    columns = [prob, o.outcome, on_time] + ([p.segments] if filtered else [])
     query = (
-        sa.select(prob, p.version, p.segments, p.predicted_at_us, o.outcome, o.observed_at_us)
+        sa.select(*columns)
         .select_from(
             predictions.outerjoin(outcomes, sa.and_(o.prediction_id == p.id, o.id <= max_ids[1]))
         )
@@ -117,40 +126,33 @@ def _raw_bucket(
             # A cheap text prefilter on the canonical JSON; the slice test below decides.
             fragment = f'"{key}":' + orjson.dumps(value).decode()
             query = query.where(p.segments.contains(fragment, autoescape=True))
-    ys, ps = [], []
-    matured = late = unlabelled = 0
+    rows = conn.execute(query).all()
+    if filtered and rows:
+        # A day holds hundreds of thousands of rows but few distinct segment texts:
+        # decide each once (the cap is frozen, so the answer cannot change).
+        inside: dict[str | None, bool] = {}
+        for text in {r[3] for r in rows}:
+            parsed = orjson.loads(text) if text else {}
+            inside[text] = slice_name in spec.names(parsed, cap)
+        rows = [r for r in rows if inside[r[3]]]
+    if not rows:
+        return Bucket(empty_sketch(k))
+    probabilities, outcome_col, on_time_col = list(zip(*rows, strict=True))[:3]
+    # The states of cohorts.classify, for all rows at once.
+    observed = np.array([t is not None for t in on_time_col])
+    in_time = np.array([t == 1 for t in on_time_col])
     negative = model.declaration.missing_outcome == "negative"
-    # A day holds hundreds of thousands of rows but few distinct segment texts and
-    # row states: decide each once (the cap is frozen, so the answer cannot change).
-    inside: dict[str | None, bool] = {}
-    states: dict[tuple[int | None, bool], RowState] = {}
-    for probability, _, segments, at, outcome, observed in conn.execute(query):
-        wanted = inside.get(segments)
-        if wanted is None:
-            parsed = orjson.loads(segments) if segments else {}
-            wanted = inside[segments] = slice_name in spec.names(parsed, cap)
-        if not wanted:
-            continue
-        known = (outcome, observed <= at + horizon_us) if observed is not None else (outcome, False)
-        state = states.get(known)
-        if state is None:
-            state = states[known] = classify(
-                outcome=outcome,
-                observed_at_us=observed,
-                predicted_at_us=at,
-                horizon_us=horizon_us,
-                missing_negative=negative,
-            )
-        matured += 1
-        late += state.late
-        unlabelled += state.unlabelled
-        if state.included:
-            ys.append(state.y)
-            ps.append(orjson.loads(probability) if k else probability)
-    if not ys:
-        return Bucket(empty_sketch(k), matured, late, unlabelled)
+    included = in_time | (~in_time & negative)
+    late = int((observed & ~in_time).sum())
+    unlabelled = int((~observed).sum())
+    if not included.any():
+        return Bucket(empty_sketch(k), len(rows), late, unlabelled)
+    y = np.array([o if t == 1 else 0 for o, t in zip(outcome_col, on_time_col, strict=True)])
+    ys = y[included]
     if k:
-        sketch: Any = MulticlassSketch.from_arrays(np.asarray(ys), np.asarray(ps, float))
+        chosen = [orjson.loads(x) for x, keep in zip(probabilities, included, strict=True) if keep]
+        sketch: Any = MulticlassSketch.from_arrays(ys, np.asarray(chosen, float))
     else:
-        sketch = Sketch.from_arrays(np.asarray(ys, float), np.asarray(ps, float))
-    return Bucket(sketch, matured, late, unlabelled)
+        ps = np.asarray(probabilities, float)[included]
+        sketch = Sketch.from_arrays(ys.astype(float), ps)
+    return Bucket(sketch, len(rows), late, unlabelled)
