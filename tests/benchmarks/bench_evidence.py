@@ -41,6 +41,7 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
 from plumbwatch.evaluate import cusum  # noqa: E402
+from plumbwatch.stats.cusum import cusum_weights  # noqa: E402
 from plumbwatch.store.engine import create_engine  # noqa: E402
 from plumbwatch.store.migrate import upgrade  # noqa: E402
 from tests.simulation import (  # noqa: E402
@@ -74,7 +75,8 @@ def cusum_year(s: Scenario) -> np.ndarray:
         for zones, y, p in later.pop(day, []):
             for z in np.unique(zones):
                 mine = zones == z
-                tracks[z] = cusum.update(tracks[z], y[mine].astype(float), p[mine])
+                w = cusum_weights(y[mine], p[mine], tracks[z].chart.r_a)
+                tracks[z] = cusum.update(tracks[z], w, cusum.mix_bins(p[mine]))
         tracks = cusum.assign_thresholds(tracks, target_arl0=10_000)
         out[day] = [t.signalled for t in tracks]
     return out

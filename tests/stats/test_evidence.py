@@ -16,6 +16,7 @@ from plumbwatch.stats.evidence import (
     RiskAdjustedCusum,
     TemperatureEvidence,
     binary_log_lr,
+    binary_log_lr_sums,
     cusum_threshold_by_simulation,
     cusum_weights,
     log_evidence_path,
@@ -113,6 +114,27 @@ def test_chunked_large_batch_equals_row_by_row_sums() -> None:
     np.testing.assert_allclose(s.log_lr, direct, rtol=1e-9, atol=1e-9)
     assert path[-1] == pytest.approx(s.log_evidence, rel=1e-12)
     assert s.max_log_evidence == pytest.approx(max(0.0, path.max()), rel=1e-12)
+
+
+@pytest.mark.parametrize("wide", [False, True], ids=["default-grid", "wide-grid"])
+def test_log_lr_sums_per_group_equal_row_sums(wide: bool) -> None:
+    # The grouped fast form against binary_log_lr summed row by row with numpy;
+    # p = 0 and 1 exercise the clipping, a wide grid the fallback to the direct form.
+    rng = np.random.default_rng(7)
+    n, k = 20_000, 37
+    p = np.r_[rng.beta(2, 5, n - 2), 0.0, 1.0]
+    y = (rng.random(n) < p).astype(np.int64)
+    groups = rng.integers(0, k, n)
+    groups[groups == 5] = 6  # a group without rows sums to zero
+    s = MixtureEvidence.start()
+    a, b = s.params[:, 0], s.params[:, 1]
+    if wide:
+        a, b = a * 40.0, b * 40.0
+    got = binary_log_lr_sums(y, p, groups, k, a, b)
+    rows = binary_log_lr(y, p, a, b)
+    want = np.stack([rows[groups == g].sum(axis=0) for g in range(k)])
+    np.testing.assert_allclose(got, want, rtol=1e-10, atol=1e-8)
+    assert not got[5].any()
 
 
 batches = st.lists(

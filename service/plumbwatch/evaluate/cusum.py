@@ -101,15 +101,22 @@ class Track:
         }
 
 
-def update(track: Track, y: NDArray[np.float64], p: NDArray[np.float64]) -> Track:
-    """Feed rows in maturity order; grow the case mix until it holds 1,000 rows."""
-    if not y.size:
+def mix_bins(p: NDArray[np.float64]) -> NDArray[np.intp]:
+    """Each row's case-mix bin (``logit p`` on the grid of ``_EDGES``)."""
+    q = np.clip(p, 1e-6, 1 - 1e-6)
+    return np.searchsorted(_EDGES, np.log(q) - np.log1p(-q), side="right")
+
+
+def update(track: Track, weights: NDArray[np.float64], bins: NDArray[np.intp]) -> Track:
+    """Feed rows in maturity order, given their chart weights (``cusum_weights`` for the
+    track's odds ratios) and case-mix bins (:func:`mix_bins`), both computed once for
+    every stream the rows feed; grow the case mix until it holds 1,000 rows."""
+    if not weights.shape[0]:
         return track
-    chart = track.chart.update(y, p)
+    chart, _ = track.chart.update_with_weights(weights)
     mix, frozen = track.case_mix, track.frozen
     if not frozen:
-        z = np.log(np.clip(p, 1e-6, 1 - 1e-6)) - np.log1p(-np.clip(p, 1e-6, 1 - 1e-6))
-        counts = np.bincount(np.searchsorted(_EDGES, z, side="right"), minlength=_EDGES.size + 1)
+        counts = np.bincount(bins, minlength=_EDGES.size + 1)
         mix = [a + int(b) for a, b in zip(mix, counts, strict=True)]
         frozen = sum(mix) >= CASE_MIX_ROWS
     return replace(track, chart=chart, case_mix=mix, frozen=frozen)
@@ -185,4 +192,11 @@ def assign_thresholds(tracks: list[Track], *, target_arl0: int) -> list[Track]:
     return out
 
 
-__all__ = ["CASE_MIX_ROWS", "SIMULATIONS_PER_RUN", "Track", "assign_thresholds", "update"]
+__all__ = [
+    "CASE_MIX_ROWS",
+    "SIMULATIONS_PER_RUN",
+    "Track",
+    "assign_thresholds",
+    "mix_bins",
+    "update",
+]

@@ -56,7 +56,8 @@ from plumbwatch.evaluate import evidence_rows as rows_mod
 from plumbwatch.evaluate.evidence_rows import NEG_INF
 from plumbwatch.evaluate.immature import frozen_view
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
-from plumbwatch.stats.evidence import MixtureEvidence, TemperatureEvidence, binary_log_lr
+from plumbwatch.stats.cusum import cusum_weights
+from plumbwatch.stats.evidence import MixtureEvidence, TemperatureEvidence, binary_log_lr_sums
 from plumbwatch.stats.evidence import log_threshold as ville_threshold
 from plumbwatch.store import evidence as store
 from plumbwatch.store.evidence import EvidenceCursor, StoredStream, StreamKey
@@ -299,12 +300,7 @@ def _log_lr_per_combo(cid: np.ndarray, y: np.ndarray, p: np.ndarray, n_combos: i
     out = np.zeros((n_combos, a.size))
     for start in range(0, cid.size, _CHUNK):
         part = slice(start, start + _CHUNK)
-        lr = binary_log_lr(y[part], p[part], a, b, eps=template.eps)
-        c = cid[part]
-        order = np.argsort(c, kind="stable")
-        ranked = c[order]
-        firsts = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]])
-        out[ranked[firsts]] += np.add.reduceat(lr[order], firsts, axis=0)
+        out += binary_log_lr_sums(y[part], p[part], cid[part], n_combos, a, b, eps=template.eps)
     return out
 
 
@@ -335,6 +331,9 @@ def _feed(
     since = (previous.frontier_us, previous.prediction_seq) if previous else (NEG_INF, 0)
     if not multiclass:
         per_combo = _log_lr_per_combo(cid, y, p, n_combos)
+        # A row's chart weights and case-mix bin are the same in every stream it feeds.
+        weights: dict[tuple[float, ...], np.ndarray] = {}
+        bins = cusum.mix_bins(p)
     for key, combos in members.items():
         stream = run.streams.get(key)
         if stream is None:
@@ -344,8 +343,16 @@ def _feed(
                 as_of_us,
                 *since,
             )
-        # This stream's rows, back in maturity order.
-        idx = np.sort(np.concatenate([order[bounds[c] : bounds[c + 1]] for c in combos]))
+        # This stream's rows, back in maturity order: all of them for a stream fed by every
+        # combination (overall); else each combination's part, which is sorted already
+        # (so a stable sort merges those runs).
+        idx: Any = (
+            slice(None)  # no copy
+            if len(combos) == n_combos
+            else np.sort(
+                np.concatenate([order[bounds[c] : bounds[c + 1]] for c in combos]), kind="stable"
+            )
+        )
         state = stream.state
         if multiclass:
             state = state.update(y[idx], p[idx])
@@ -353,7 +360,11 @@ def _feed(
             log_lr = np.array(state.log_lr + per_combo[combos].sum(axis=0))
             log_lr.setflags(write=False)
             state = replace(state, log_lr=log_lr, n=state.n + int(counts[combos].sum()))
-            stream.track = cusum.update(stream.track or cusum.Track(), y[idx].astype(float), p[idx])
+            track = stream.track or cusum.Track()
+            w = weights.get(track.chart.r_a)
+            if w is None:
+                w = weights[track.chart.r_a] = cusum_weights(y, p, track.chart.r_a)
+            stream.track = cusum.update(track, w[idx], bins[idx])
         # The maximum is taken where it is looked at, at the end of a run.
         stream.state = replace(
             state, max_log_evidence=max(stream.state.max_log_evidence, state.log_evidence)

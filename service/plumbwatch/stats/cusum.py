@@ -86,13 +86,22 @@ class RiskAdjustedCusum:
     ) -> tuple[RiskAdjustedCusum, FloatArray]:
         """Process a batch in order; also return ``W_t`` per row and chart."""
         y, p, _ = check_binary_pair(y_true, y_prob)
-        if y.shape[0] == 0:
+        return self.update_with_weights(cusum_weights(y, p, self.r_a))
+
+    def update_with_weights(self, weights: ArrayLike) -> tuple[RiskAdjustedCusum, FloatArray]:
+        """Process a batch given its rows' weights in order, shape ``(n_rows, n_charts)``
+        (:func:`cusum_weights` for these charts' ``r_a``); also return ``W_t``. For
+        callers that feed the same rows to many charts and compute the weights once."""
+        w = np.asarray(weights, dtype=np.float64)
+        if w.shape[0] == 0:
             return self, np.empty((0, len(self.r_a)))
-        path = _lindley(np.asarray(self.statistic), cusum_weights(y, p, self.r_a))
+        if w.ndim != 2 or w.shape[1] != len(self.r_a):
+            raise ValueError(f"weights: expected shape (n, {len(self.r_a)}), got {w.shape}")
+        path = _lindley(np.asarray(self.statistic), w)
         new = RiskAdjustedCusum(
             r_a=self.r_a,
             statistic=tuple(float(v) for v in path[-1]),
-            n=self.n + y.shape[0],
+            n=self.n + w.shape[0],
             max_statistic=tuple(
                 float(max(m, v)) for m, v in zip(self.max_statistic, path.max(axis=0), strict=True)
             ),

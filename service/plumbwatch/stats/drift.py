@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -142,8 +143,15 @@ def psi_from_counts(
     e = np.maximum(r / n_ref, floor)
     a = np.maximum(c / n_cur, floor)
     value = float(np.sum((a - e) * np.log(a / e)))
-    q = float(stats.chi2.ppf(1.0 - alpha, n_bins - 1) * (1.0 / n_ref + 1.0 / n_cur))
+    q = _chi2_quantile(1.0 - alpha, n_bins - 1) * (1.0 / n_ref + 1.0 / n_cur)
     return PsiResult(value, n_bins, float(floor), q, value > q, float(alpha), n_ref, n_cur)
+
+
+@lru_cache(maxsize=256)
+def _chi2_quantile(level: float, df: int) -> float:
+    # A run asks for the same few (level, df) pairs for every slice; scipy's ppf
+    # costs about as much as the rest of the PSI.
+    return float(stats.chi2.ppf(level, df))
 
 
 def psi(
