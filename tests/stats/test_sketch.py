@@ -249,3 +249,23 @@ def test_merge_bins_is_the_sorted_union(a: list[int], b: list[int]) -> None:
     # Reference: numpy's union1d.
     x, y = np.unique(np.array(a, np.intp)), np.unique(np.array(b, np.intp))
     assert merge_bins(x, y).tolist() == np.union1d(x, y).tolist()
+
+
+@pytest.mark.parametrize("width", [1, 5, 7])
+def test_grouped_fields_equal_numpy_sums_of_the_dense_fields(width: int) -> None:
+    # Sketch.grouped reads only occupied bins; numpy's reshape-and-sum of the dense
+    # fields (padded to whole runs) is the reference, for a sparse and a dense sketch.
+    rng = np.random.default_rng(3)
+    p = rng.beta(2, 5, 500)
+    y = (rng.random(500) < p).astype(float)
+    sparse = Sketch.from_bytes(Sketch.from_arrays(y, p).to_bytes())
+    names = ("count", "sum_y", "sum_logit")
+    size = -(-grid.N_BINS // width)
+    for sketch in (sparse, Sketch.from_arrays(y, p)):
+        got = sketch.grouped(names, width)
+        for row, name in zip(got, names, strict=True):
+            padded = np.zeros(size * width)
+            padded[: grid.N_BINS] = getattr(sketch, name)
+            np.testing.assert_allclose(row, padded.reshape(size, width).sum(axis=1), rtol=1e-12)
+    with pytest.raises(ValueError, match="width"):
+        sparse.grouped(names, 0)

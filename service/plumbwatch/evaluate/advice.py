@@ -75,15 +75,14 @@ class Days:
 
 def grouped_days(sketches: list[Any]) -> Days:
     """Group each day's grid bins ``GROUP`` at a time; drop groups without rows."""
-    groups = np.arange(N_BINS) // GROUP
-    size = int(groups[-1]) + 1
-
-    def per_group(values: np.ndarray) -> np.ndarray:
-        return np.bincount(groups, weights=values, minlength=size)
-
-    count = np.array([per_group(s.count) for s in sketches])
-    events = np.array([per_group(s.sum_y) for s in sketches])
-    logit = np.array([per_group(s.sum_logit) for s in sketches])
+    size = -(-N_BINS // GROUP)
+    fields = ("count", "sum_y", "sum_logit")
+    per_day = (
+        np.stack([s.grouped(fields, GROUP) for s in sketches])
+        if sketches
+        else np.zeros((0, len(fields), size))
+    )
+    count, events, logit = per_day[:, 0], per_day[:, 1], per_day[:, 2]
     total = count.sum(axis=0)
     keep = total > 0
     p = 1.0 / (1.0 + np.exp(-logit.sum(axis=0)[keep] / total[keep]))

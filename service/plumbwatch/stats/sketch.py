@@ -250,6 +250,20 @@ class Sketch:
             out[:, hit] = vals[:, pos[hit]]
         return out
 
+    def grouped(self, names: tuple[str, ...], width: int) -> FloatArray:
+        """The fields ``names`` summed over runs of ``width`` consecutive grid bins:
+        shape ``(len(names), ceil(N_BINS / width))``. Reads only occupied bins, so a
+        sparse sketch is not expanded to its dense fields."""
+        if width < 1:
+            raise ValueError(f"width: expected a positive integer, got {width!r}")
+        rows = [FIELDS.index(name) for name in names]
+        size = -(-grid.N_BINS // width)
+        idx, vals = self._columns()
+        out = np.zeros((len(rows), size))
+        for i, row in enumerate(rows):
+            out[i] = np.bincount(idx // width, weights=vals[row], minlength=size)
+        return out
+
     def _is_columns(self) -> bool:
         return "_m" not in self.__dict__ and "_cols" in self.__dict__
 
