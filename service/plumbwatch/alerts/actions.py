@@ -26,19 +26,7 @@ def acknowledge(conn: sa.Connection, *, alert_id: int, actor: str, now_us: int) 
     change = lifecycle.acknowledge(alert.id, alert.state)
     if change is None:
         return alert.as_dict()
-    after = store_alerts.set_state(
-        conn, alert=alert, state=change.to_state, now_us=now_us, acknowledged_by=actor
-    )
-    record_event(
-        conn,
-        alert=after,
-        kind=change.kind,
-        from_state=alert.state,
-        at_us=now_us,
-        send=True,
-        actor=actor,
-    )
-    return after.as_dict()
+    return _apply(conn, alert, change, actor=actor, now_us=now_us, acknowledged_by=actor)
 
 
 def shelve(
@@ -49,13 +37,35 @@ def shelve(
     NotFound for an unknown id, Conflict once it cleared."""
     alert = store_alerts.get_or_raise(conn, alert_id=alert_id, for_update=True)
     change = lifecycle.shelve(alert.id, alert.state, until_us=until_us, now_us=now_us)
+    return _apply(
+        conn,
+        alert,
+        change,
+        actor=actor,
+        now_us=now_us,
+        acknowledged_by=alert.acknowledged_by,  # the event records who shelved it
+        shelved_until_us=until_us,
+    )
+
+
+def _apply(
+    conn: sa.Connection,
+    alert: store_alerts.Alert,
+    change: lifecycle.Change,
+    *,
+    actor: str,
+    now_us: int,
+    acknowledged_by: str | None,
+    shelved_until_us: int | None = None,
+) -> dict[str, Any]:
+    """Move the alert as ``change`` says and queue the event for its sinks."""
     after = store_alerts.set_state(
         conn,
         alert=alert,
         state=change.to_state,
         now_us=now_us,
-        acknowledged_by=alert.acknowledged_by,  # the event records who shelved it
-        shelved_until_us=until_us,
+        acknowledged_by=acknowledged_by,
+        shelved_until_us=shelved_until_us,
     )
     record_event(
         conn,

@@ -9,6 +9,7 @@ out (and counted); with ``negative`` it counts as 0.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 DAY_US = 86_400 * 1_000_000
@@ -46,6 +47,33 @@ def classify(
         # Observed after the horizon: by maturity the row had no outcome.
         return RowState(missing_negative, 0, 1, 0)
     return RowState(missing_negative, 0, 0, 1)
+
+
+def state_lookup(
+    *, horizon_us: int, missing_negative: bool
+) -> Callable[[int, int | None, int | None], RowState]:
+    """``classify`` as ``state_of(predicted_at, outcome, observed_at)``, looked up by
+    (outcome, observed within the horizon): a pass over millions of rows meets only a
+    handful of states, so each is classified once."""
+    known: dict[tuple[int | None, bool], RowState] = {}
+
+    def state_of(at: int, outcome: int | None, observed: int | None) -> RowState:
+        if outcome is None or observed is None:
+            key: tuple[int | None, bool] = (None, False)
+        else:
+            key = (outcome, observed <= at + horizon_us)
+        state = known.get(key)
+        if state is None:
+            state = known[key] = classify(
+                outcome=outcome,
+                observed_at_us=observed,
+                predicted_at_us=at,
+                horizon_us=horizon_us,
+                missing_negative=missing_negative,
+            )
+        return state
+
+    return state_of
 
 
 @dataclass(frozen=True)

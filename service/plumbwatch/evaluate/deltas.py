@@ -27,7 +27,7 @@ import sqlalchemy as sa
 from numpy.typing import NDArray
 
 from plumbwatch.evaluate import multiclass
-from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify, day_of
+from plumbwatch.evaluate.cohorts import DAY_US, RowState, classify, day_of, state_lookup
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
 from plumbwatch.stats.sketch import Sketch, merge_bins
 from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch
@@ -319,25 +319,8 @@ def collect(
         .select_from(predictions.outerjoin(outcomes, o.prediction_id == p.id))
         .where(p.model_id == model_id, p.id <= p1)
     )
-    known: dict[tuple[int | None, bool], RowState] = {}
     lower, upper, observe = watch if watch is not None else (0, -1, None)
-
-    def state_of(at: int, outcome: int | None, observed: int | None) -> RowState:
-        """``classify``, looked up by (outcome, observed within the horizon)."""
-        if outcome is None or observed is None:
-            key: tuple[int | None, bool] = (None, False)
-        else:
-            key = (outcome, observed <= at + horizon_us)
-        after = known.get(key)
-        if after is None:
-            after = known[key] = classify(
-                outcome=outcome,
-                observed_at_us=observed,
-                predicted_at_us=at,
-                horizon_us=horizon_us,
-                missing_negative=missing_negative,
-            )
-        return after
+    state_of = state_lookup(horizon_us=horizon_us, missing_negative=missing_negative)
 
     # 1. Matured since the last run, and 2. received since then although already matured.
     for query in (

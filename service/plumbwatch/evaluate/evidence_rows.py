@@ -27,7 +27,7 @@ import numpy as np
 import orjson
 import sqlalchemy as sa
 
-from plumbwatch.evaluate.cohorts import RowState, classify
+from plumbwatch.evaluate.cohorts import RowState, state_lookup
 from plumbwatch.store.evidence import EvidenceCursor
 from plumbwatch.store.tables import outcome_revisions, outcomes, predictions
 
@@ -170,7 +170,7 @@ def read(
     )
     f = frontiers
     backfills, gap = Rows(multiclass), Rows(multiclass)
-    known: dict[tuple[int | None, bool], RowState] = {}
+    state_of = state_lookup(horizon_us=horizon_us, missing_negative=missing_negative)
     work = []
     if f.e0 > NEG_INF:
         work.append((backfills, joined.where(p.id > f.p0, p.predicted_at_us <= f.e0)))
@@ -180,16 +180,7 @@ def read(
     for rows, query in work:
         ordered = query.order_by(p.predicted_at_us, p.id).execution_options(yield_per=_CHUNK)
         for at, pr, version, segments, outcome, observed in conn.execute(ordered):
-            key = (None, False) if outcome is None else (outcome, observed <= at + horizon_us)
-            state = known.get(key)
-            if state is None:
-                state = known[key] = classify(
-                    outcome=outcome,
-                    observed_at_us=observed,
-                    predicted_at_us=at,
-                    horizon_us=horizon_us,
-                    missing_negative=missing_negative,
-                )
+            state = state_of(at, outcome, observed)
             rows.observe(at, pr, version, segments, state)
     return backfills, gap
 

@@ -159,6 +159,18 @@ def _write_with(engine: Any, fn: Callable[[sa.Connection], dict[str, Any]]) -> d
         return fn(conn)
 
 
+async def _act(
+    request: Request, engine: Any, action: Callable[[sa.Connection, int], dict[str, Any]]
+) -> JsonResponse:
+    """Run a person's action on an alert in one write transaction, at the app's clock,
+    then wake the sender for the event it queued."""
+    state = request.app.state
+    now_us = state.clock_us()
+    result = await run_in_threadpool(_write_with, engine, lambda conn: action(conn, now_us))
+    state.alerting.wake()
+    return JsonResponse(result)
+
+
 @router.post(
     "/{alert_id}/acknowledge",
     response_model=AlertRead,
@@ -174,15 +186,11 @@ async def acknowledge(
 ) -> JsonResponse:
     """Acknowledge an alert; the token's name is recorded. Repeating it is harmless."""
     await _prepare(request, engine, alert_id, principal, settings.max_body_bytes, set())
-    state = request.app.state
-    now_us = state.clock_us()
 
-    def run(conn: sa.Connection) -> dict[str, Any]:
+    def run(conn: sa.Connection, now_us: int) -> dict[str, Any]:
         return actions.acknowledge(conn, alert_id=alert_id, actor=principal.name, now_us=now_us)
 
-    result = await run_in_threadpool(_write_with, engine, run)
-    state.alerting.wake()
-    return JsonResponse(result)
+    return await _act(request, engine, run)
 
 
 @router.post(
@@ -206,14 +214,10 @@ async def shelve(
         raise InvalidInput(
             "until is not an RFC 3339 timestamp", [Detail(field="until", reason=str(exc))]
         ) from None
-    state = request.app.state
-    now_us = state.clock_us()
 
-    def run(conn: sa.Connection) -> dict[str, Any]:
+    def run(conn: sa.Connection, now_us: int) -> dict[str, Any]:
         return actions.shelve(
             conn, alert_id=alert_id, actor=principal.name, until_us=until_us, now_us=now_us
         )
 
-    result = await run_in_threadpool(_write_with, engine, run)
-    state.alerting.wake()
-    return JsonResponse(result)
+    return await _act(request, engine, run)
