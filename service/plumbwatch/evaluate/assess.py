@@ -30,7 +30,7 @@ from plumbwatch.evaluate.metrics import health, worst
 from plumbwatch.evaluate.options import Options
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
 from plumbwatch.store.models import MonitoredModel
-from plumbwatch.store.sketches import Bucket, BucketKey, empty_sketch
+from plumbwatch.store.sketches import Bucket, BucketKey, WindowSums, empty_sketch
 
 _EVIDENCE = ("log_evidence", "log_threshold")
 
@@ -249,6 +249,7 @@ def recalibration(
     options: Options,
     windows: list[Window],
     buckets: dict[BucketKey, Bucket],
+    window_sums: dict[str, WindowSums],
     assessment: Assessment,
     *,
     spec: SliceSpec,
@@ -262,9 +263,7 @@ def recalibration(
     k = len(model.classes)
     for w in sorted(windows, key=lambda w: w.end_day - w.first_day):
         sums: dict[str, Bucket] = defaultdict(lambda: Bucket(empty_sketch(k)))
-        for (v, day, name), b in buckets.items():
-            if v == version and w.first_day <= day < w.end_day:
-                sums[name] = sums[name] + b
+        sums.update((name, b) for (v, name), b in window_sums[w.name][1].items() if v == version)
         enough = {
             name
             for name, b in sums.items()

@@ -33,7 +33,14 @@ from plumbwatch.store import sketches as store_sketches
 from plumbwatch.store.engine import BEGIN_OPTION
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.store.retention import oldest_prediction_us
-from plumbwatch.store.sketches import Bucket, BucketKey, Cursor, empty_sketch, sum_buckets
+from plumbwatch.store.sketches import (
+    Bucket,
+    BucketKey,
+    Cursor,
+    WindowSums,
+    empty_sketch,
+    sum_buckets,
+)
 from plumbwatch.timefmt import format_instant, parse_duration
 
 _FLUSH_ROWS = 200_000
@@ -151,13 +158,16 @@ def evaluate_model(
             conn, model, options, windows, version_now, replay_backwards, pending,
             as_of_us=as_of_us, seqs=seqs, spec=spec, cap=cap, touched=touched, buckets=current,
         )  # fmt: skip
+        # Each window's sums per slice, and per (version, slice): the record and the
+        # advice both read them.
+        sums = {w.name: _sum(current, w, k) for w in windows}
         recalibration = assess.recalibration(
-            conn, model, options, windows, current, assessment, spec=spec, cap=cap
+            conn, model, options, windows, current, sums, assessment, spec=spec, cap=cap
         )
     record = _record(
         model,
         windows,
-        current,
+        sums,
         immature,
         cap,
         as_of_us=as_of_us,
@@ -225,9 +235,7 @@ def _windows(names: list[str], *, frontier_us: int) -> list[Window]:
     ]
 
 
-def _sum(
-    buckets: dict[BucketKey, Bucket], w: Window, n_classes: int
-) -> tuple[dict[str, Bucket], dict[tuple[str, str], Bucket]]:
+def _sum(buckets: dict[BucketKey, Bucket], w: Window, n_classes: int) -> WindowSums:
     """Per slice across versions, and per (version, slice), over the window's days."""
     per_slice: dict[str, list[Bucket]] = defaultdict(list)
     per_version: dict[tuple[str, str], list[Bucket]] = defaultdict(list)
@@ -273,7 +281,7 @@ def _slice_entry(
 def _record(
     model: MonitoredModel,
     windows: list[Window],
-    buckets: dict[BucketKey, Bucket],
+    sums: dict[str, WindowSums],
     immature: list[dict[str, Any]],
     cap: ValueCap,
     *,
@@ -287,7 +295,7 @@ def _record(
     out_windows = []
     states = []
     for w in windows:
-        overall, by_version = _sum(buckets, w, len(model.classes))
+        overall, by_version = sums[w.name]
         if "overall" not in overall:
             overall["overall"] = Bucket(empty_sketch(len(model.classes)))
         versions = sorted({v for v, _ in by_version})

@@ -67,6 +67,10 @@ class Bucket:
         )
 
 
+# A window's sums: per slice across versions, and per (version, slice).
+WindowSums = tuple[dict[str, Bucket], dict[tuple[str, str], Bucket]]
+
+
 def sum_buckets(buckets: Iterable[Bucket], n_classes: int = 0) -> Bucket:
     """The sum of ``buckets``: bin by bin the additions of folding them with ``+``
     from an empty bucket, in one accumulator instead of a new sketch per step."""
