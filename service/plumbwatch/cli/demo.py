@@ -27,7 +27,7 @@ import httpx
 
 from plumbwatch.config import Settings
 from plumbwatch.store import tokens
-from plumbwatch.store.engine import create_engine
+from plumbwatch.store.engine import create_engine, writing
 from plumbwatch.store.migrate import upgrade
 from plumbwatch.timefmt import format_instant, to_micros
 
@@ -74,7 +74,7 @@ def _create_tokens(settings: Settings) -> dict[str, str]:
         now_us = to_micros(datetime.now(UTC))
         stamp = format_instant(now_us)
         created = {}
-        with engine.begin() as conn:
+        with writing(engine) as conn:
             for scope in ("admin", "ingest", "read"):
                 _, secret = tokens.create(
                     conn=conn, name=f"demo-{scope}-{stamp}", scope=scope, now_us=now_us

@@ -22,7 +22,7 @@ from plumbwatch.cli.load import add_parser as add_load_parser
 from plumbwatch.config import Settings, load_settings
 from plumbwatch.errors import PlumbwatchError
 from plumbwatch.store import tokens
-from plumbwatch.store.engine import create_engine
+from plumbwatch.store.engine import create_engine, writing
 from plumbwatch.store.migrate import current_revision, require_current, upgrade
 from plumbwatch.store.models import get_or_raise
 from plumbwatch.timefmt import format_instant, parse_duration, parse_instant, to_micros
@@ -106,7 +106,7 @@ def _token(engine: Engine, args: argparse.Namespace) -> int:
         if args.expires:
             expires = now_us + int(parse_duration(args.expires).total_seconds() * 1_000_000)
         name = args.name or f"{args.scope}-{format_instant(now_us)}"
-        with engine.begin() as conn:
+        with writing(engine) as conn:
             model_id = None
             if args.model:
                 model_id = get_or_raise(conn=conn, name=args.model).id
@@ -144,7 +144,7 @@ def _token(engine: Engine, args: argparse.Namespace) -> int:
                 f"{format_instant(t.created_at_us):22} {state}"
             )
         return 0
-    with engine.begin() as conn:
+    with writing(engine) as conn:
         revoked = tokens.revoke(conn=conn, name=args.name, now_us=now_us)
     print(f"revoked token {revoked.name!r}")
     return 0

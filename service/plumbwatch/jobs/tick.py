@@ -26,6 +26,7 @@ from plumbwatch.store import evidence as store_evidence
 from plumbwatch.store import models as store_models
 from plumbwatch.store import retention
 from plumbwatch.store import sketches as store_sketches
+from plumbwatch.store.engine import writing
 from plumbwatch.store.models import MonitoredModel
 
 log = logging.getLogger(__name__)
@@ -70,7 +71,7 @@ class Evaluator:
         """With ``unless_done_since``: None when a record with an as_of at or after it
         exists already (another server ran this tick)."""
         name = f"evaluate:{model.id}"
-        with self.engine.begin() as conn:
+        with writing(self.engine) as conn:
             taken = store_evaluations.acquire_lease(
                 conn, name=name, holder=self.holder, now_us=now_us, ttl_us=LEASE_TTL_US
             )
@@ -100,7 +101,7 @@ class Evaluator:
                 self.on_duration(model, time.perf_counter() - started)
             return record
         finally:
-            with self.engine.begin() as conn:
+            with writing(self.engine) as conn:
                 store_evaluations.release_lease(conn, name=name, holder=self.holder)
 
     def prune(self, model: MonitoredModel, *, now_us: int, batch: int = 5_000) -> int:
@@ -119,7 +120,7 @@ class Evaluator:
         before = min(now_us - self.retention_days * DAY_US, frontier)
         total = 0
         while True:
-            with self.engine.begin() as conn:
+            with writing(self.engine) as conn:
                 done = retention.prune_batch(conn, model_id=model.id, before_us=before, batch=batch)
             total += done
             if done < batch:

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -54,3 +56,17 @@ def create_engine(url: str, *, busy_timeout_ms: int = 30_000, **kwargs: Any) -> 
         kwargs.setdefault("pool_pre_ping", True)
         return sa.create_engine(parsed, **kwargs)
     raise ValueError(f"unsupported database URL {url!r}: use sqlite:/// or postgresql://")
+
+
+@contextmanager
+def writing(engine: Engine) -> Iterator[sa.Connection]:
+    """A connection in a transaction that will write, committed on success.
+
+    On SQLite it begins IMMEDIATE and so takes the write lock up front: a deferred
+    transaction that reads and then writes fails at once with "database is locked"
+    when another connection writes meanwhile, whatever the busy timeout (SQLite
+    cannot upgrade its read lock then). PostgreSQL begins as usual.
+    """
+    conn = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
+    with conn, conn.begin():
+        yield conn

@@ -12,6 +12,7 @@ from sqlalchemy.engine import Engine
 
 from plumbwatch.declarations import NAME_PATTERN, ModelDeclaration
 from plumbwatch.errors import ConfigError, Conflict, NotFound, PlumbwatchError
+from plumbwatch.store.engine import writing
 from plumbwatch.store.tables import monitored_models as t
 from plumbwatch.store.tables import outcomes, predictions
 
@@ -193,7 +194,7 @@ def apply_declarations(engine: Engine, declared: dict[str, dict[str, Any]], *, n
                 f"{'.'.join(str(p) for p in e['loc']) or 'body'}: {e['msg']}" for e in exc.errors()
             )
             raise ConfigError(f"[models.{name}] in the config file: {problems}") from None
-    with engine.begin() as conn:
+    with writing(engine) as conn:
         for name, declaration in parsed.items():
             try:
                 upsert(conn=conn, name=name, declaration=declaration, now_us=now_us)

@@ -19,7 +19,7 @@ from plumbwatch.errors import Detail, InvalidInput
 from plumbwatch.store import alerts as store_alerts
 from plumbwatch.store import models as store_models
 from plumbwatch.store.alerts import STATES, Alert
-from plumbwatch.store.engine import BEGIN_OPTION
+from plumbwatch.store.engine import writing
 from plumbwatch.timefmt import parse_instant, to_micros
 
 router = APIRouter(prefix="/v1/alerts", tags=["alerts"])
@@ -153,9 +153,7 @@ async def _prepare(
 
 
 def _write_with(engine: Any, fn: Callable[[sa.Connection], dict[str, Any]]) -> dict[str, Any]:
-    # SQLite: take the write lock up front, the alert row is read then written.
-    conn = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
-    with conn, conn.begin():
+    with writing(engine) as conn:  # the alert row is read, then written
         return fn(conn)
 
 

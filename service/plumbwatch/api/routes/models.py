@@ -16,6 +16,7 @@ from plumbwatch.api.schemas import ModelListRead, ModelRead, body, errors, inlin
 from plumbwatch.declarations import NAME_PATTERN, ModelDeclaration
 from plumbwatch.errors import Detail, InvalidInput
 from plumbwatch.store import models as store_models
+from plumbwatch.store.engine import writing
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.timefmt import format_instant
 
@@ -117,7 +118,7 @@ async def put_model(
     now_us = request.app.state.clock_us()
 
     def write() -> tuple[MonitoredModel, bool]:
-        with engine.begin() as conn:
+        with writing(engine) as conn:
             return store_models.upsert(
                 conn=conn, name=model, declaration=declaration, now_us=now_us
             )
@@ -131,6 +132,6 @@ def archive_model(
     model: ModelName, request: Request, engine: EngineDep, principal: PrincipalDep
 ) -> JsonResponse:
     principal.require("admin", model)
-    with engine.begin() as conn:
+    with writing(engine) as conn:
         archived = store_models.archive(conn=conn, name=model, now_us=request.app.state.clock_us())
     return JsonResponse(model_read(archived))

@@ -26,6 +26,7 @@ from plumbwatch.api.page_data import Gatherer
 from plumbwatch.errors import Forbidden, PlumbwatchError
 from plumbwatch.store import history
 from plumbwatch.store import models as store_models
+from plumbwatch.store.engine import writing
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.timefmt import from_micros, parse_duration
 from plumbwatch.web import views
@@ -251,7 +252,7 @@ async def _act(request: Request, alert_id: int, action: str) -> Response:
     principal = user.principal
 
     def run() -> None:
-        with state.engine.begin() as conn:
+        with writing(state.engine) as conn:
             if principal.token.model_id is not None:
                 mine = alerts_source.list_alerts(
                     conn, model_id=principal.token.model_id, after_id=alert_id - 1, limit=1
