@@ -353,3 +353,21 @@ def test_cusum_threshold_by_simulation() -> None:
             break
     se = lengths.std(ddof=1) / math.sqrt(n_sims)
     assert abs(lengths.mean() - res.arl0) < 4 * math.hypot(se, res.arl0_se)
+
+
+def test_cusum_fed_weights_in_chunks_equals_the_whole_path() -> None:
+    # update_with_weights walks more than one internal chunk and keeps no path; the
+    # reference is the whole path of update_with_path (W_t = max(0, W_{t-1} + w_t)).
+    rng = np.random.default_rng(11)
+    n = 150_000
+    p = rng.beta(2, 5, n)
+    y = (rng.random(n) < np.clip(p * 1.3, 0, 1)).astype(float)
+    start = RiskAdjustedCusum.start().update([1, 1, 0], [0.1, 0.2, 0.3])
+    whole, path = start.update_with_path(y, p)
+    fed = start.update_with_weights(cusum_weights(y, p, start.r_a))
+    assert fed.n == whole.n == start.n + n
+    np.testing.assert_allclose(fed.statistic, path[-1], rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(fed.max_statistic, whole.max_statistic, rtol=1e-9, atol=1e-9)
+    assert start.update_with_weights(np.empty((0, 2))) == start
+    with pytest.raises(ValueError, match="weights"):
+        start.update_with_weights(np.zeros((3, 3)))

@@ -113,7 +113,7 @@ def update(track: Track, weights: NDArray[np.float64], bins: NDArray[np.intp]) -
     every stream the rows feed; grow the case mix until it holds 1,000 rows."""
     if not weights.shape[0]:
         return track
-    chart, _ = track.chart.update_with_weights(weights)
+    chart = track.chart.update_with_weights(weights)
     mix, frozen = track.case_mix, track.frozen
     if not frozen:
         counts = np.bincount(bins, minlength=_EDGES.size + 1)

@@ -304,6 +304,19 @@ def _log_lr_per_combo(cid: np.ndarray, y: np.ndarray, p: np.ndarray, n_combos: i
     return out
 
 
+def _per_row(fn: Any, n: int, dtype: Any) -> np.ndarray:
+    """``fn(rows)`` for all ``n`` rows, computed in chunks into one array: a first run
+    feeds millions of rows, and the temporaries of one whole-array pass would cost
+    hundreds of megabytes."""
+    out: np.ndarray | None = None
+    for start in range(0, n, _CHUNK):
+        part = fn(slice(start, start + _CHUNK))
+        if out is None:
+            out = np.empty((n, *part.shape[1:]), dtype=dtype)
+        out[start : start + part.shape[0]] = part
+    return out if out is not None else np.empty(0, dtype=dtype)
+
+
 def _feed(
     run: EvidenceRun,
     rows: rows_mod.Rows,
@@ -333,7 +346,7 @@ def _feed(
         per_combo = _log_lr_per_combo(cid, y, p, n_combos)
         # A row's chart weights and case-mix bin are the same in every stream it feeds.
         weights: dict[tuple[float, ...], np.ndarray] = {}
-        bins = cusum.mix_bins(p)
+        bins = _per_row(lambda part: cusum.mix_bins(p[part]), cid.size, np.intp)
     for key, combos in members.items():
         stream = run.streams.get(key)
         if stream is None:
@@ -363,7 +376,10 @@ def _feed(
             track = stream.track or cusum.Track()
             w = weights.get(track.chart.r_a)
             if w is None:
-                w = weights[track.chart.r_a] = cusum_weights(y, p, track.chart.r_a)
+                r_a = track.chart.r_a
+                w = weights[r_a] = _per_row(
+                    lambda part, r_a=r_a: cusum_weights(y[part], p[part], r_a), cid.size, float
+                )
             stream.track = cusum.update(track, w[idx], bins[idx])
         # The maximum is taken where it is looked at, at the end of a run.
         stream.state = replace(

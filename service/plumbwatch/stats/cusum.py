@@ -29,6 +29,7 @@ from plumbwatch.stats._validate import check_binary_pair, check_positive_int, ch
 
 FloatArray = NDArray[np.float64]
 DEFAULT_ODDS_RATIOS = (2.0, 0.5)
+_CHUNK = 65_536  # rows per step of a long batch
 
 
 def cusum_weights(y_true: ArrayLike, y_prob: ArrayLike, r_a: ArrayLike) -> FloatArray:
@@ -86,27 +87,36 @@ class RiskAdjustedCusum:
     ) -> tuple[RiskAdjustedCusum, FloatArray]:
         """Process a batch in order; also return ``W_t`` per row and chart."""
         y, p, _ = check_binary_pair(y_true, y_prob)
-        return self.update_with_weights(cusum_weights(y, p, self.r_a))
+        if y.shape[0] == 0:
+            return self, np.empty((0, len(self.r_a)))
+        path = _lindley(np.asarray(self.statistic), cusum_weights(y, p, self.r_a))
+        return self._after(path[-1], path.max(axis=0), y.shape[0]), path
 
-    def update_with_weights(self, weights: ArrayLike) -> tuple[RiskAdjustedCusum, FloatArray]:
+    def update_with_weights(self, weights: ArrayLike) -> RiskAdjustedCusum:
         """Process a batch given its rows' weights in order, shape ``(n_rows, n_charts)``
-        (:func:`cusum_weights` for these charts' ``r_a``); also return ``W_t``. For
-        callers that feed the same rows to many charts and compute the weights once."""
+        (:func:`cusum_weights` for these charts' ``r_a``). For callers that feed the
+        same rows to many charts and compute the weights once; the path is walked in
+        chunks and not kept, so millions of rows cost little memory."""
         w = np.asarray(weights, dtype=np.float64)
         if w.shape[0] == 0:
-            return self, np.empty((0, len(self.r_a)))
+            return self
         if w.ndim != 2 or w.shape[1] != len(self.r_a):
             raise ValueError(f"weights: expected shape (n, {len(self.r_a)}), got {w.shape}")
-        path = _lindley(np.asarray(self.statistic), w)
-        new = RiskAdjustedCusum(
+        last, top = np.asarray(self.statistic), np.asarray(self.max_statistic)
+        for start in range(0, w.shape[0], _CHUNK):
+            path = _lindley(last, w[start : start + _CHUNK])
+            last, top = path[-1], np.maximum(top, path.max(axis=0))
+        return self._after(last, top, w.shape[0])
+
+    def _after(self, last: FloatArray, top: FloatArray, rows: int) -> RiskAdjustedCusum:
+        return RiskAdjustedCusum(
             r_a=self.r_a,
-            statistic=tuple(float(v) for v in path[-1]),
-            n=self.n + w.shape[0],
+            statistic=tuple(float(v) for v in last),
+            n=self.n + rows,
             max_statistic=tuple(
-                float(max(m, v)) for m, v in zip(self.max_statistic, path.max(axis=0), strict=True)
+                float(max(m, v)) for m, v in zip(self.max_statistic, top, strict=True)
             ),
         )
-        return new, path
 
     def update(self, y_true: ArrayLike, y_prob: ArrayLike) -> RiskAdjustedCusum:
         """Process a batch in the given (maturity) order and return the new state."""
