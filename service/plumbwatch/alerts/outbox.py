@@ -20,14 +20,13 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
-import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
 from plumbwatch.alerts.sinks import SinkError, Sinks
 from plumbwatch.config import Settings
 from plumbwatch.store import deliveries as store_deliveries
 from plumbwatch.store.deliveries import Delivery
-from plumbwatch.store.engine import BEGIN_OPTION
+from plumbwatch.store.engine import writing
 
 log = logging.getLogger("plumbwatch.alerts.outbox")
 
@@ -72,10 +71,6 @@ class Sender:
     rng: random.Random = field(default_factory=random.Random)
     batch: int = 10
 
-    def _write(self) -> sa.Connection:
-        # SQLite: take the write lock up front (a deferred transaction could not upgrade).
-        return self.engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
-
     def run_once(self) -> int:
         """One pass: claim due deliveries, attempt each; returns how many were attempted."""
         now = self.clock_us()
@@ -83,7 +78,7 @@ class Sender:
         with self.engine.connect() as conn:
             if not store_deliveries.any_due(conn, now_us=now):
                 return 0
-        with self._write() as conn, conn.begin():
+        with writing(self.engine) as conn:
             claimed = store_deliveries.claim(
                 conn, holder=self.holder, now_us=now, claim_us=claim_us, limit=self.batch
             )
@@ -94,7 +89,7 @@ class Sender:
             # An attempt may take a timeout per phase (connect, send, answer).
             margin = int((self.policy.timeout_s * 3 + 1) * SECOND_US)
             if self.clock_us() + margin > now + claim_us:
-                with self._write() as conn, conn.begin():
+                with writing(self.engine) as conn:
                     store_deliveries.release(
                         conn, delivery_ids=[d.id for d in claimed[i:]], holder=self.holder
                     )
@@ -124,7 +119,7 @@ class Sender:
             except SinkError as exc:
                 error = str(exc)
         now = self.clock_us()
-        with self._write() as conn, conn.begin():
+        with writing(self.engine) as conn:
             if error is None:
                 kept = store_deliveries.mark_delivered(
                     conn, delivery_id=delivery.id, holder=self.holder, now_us=now

@@ -14,7 +14,7 @@ import orjson
 import sqlalchemy as sa
 
 from plumbwatch.errors import NotFound
-from plumbwatch.evaluate.cohorts import DAY_US
+from plumbwatch.evaluate.cohorts import DAY_US, state_lookup
 from plumbwatch.evaluate.immature import frozen_view
 from plumbwatch.evaluate.metrics import slice_metrics
 from plumbwatch.evaluate.slices import OTHER, OVERALL, SliceSpec, ValueCap, parse_slice
@@ -138,17 +138,27 @@ def _raw_bucket(
     if not rows:
         return Bucket(empty_sketch(k))
     probabilities, outcome_col, on_time_col = list(zip(*rows, strict=True))[:3]
-    # The states of cohorts.classify, for all rows at once.
-    observed = np.array([t is not None for t in on_time_col])
-    in_time = np.array([t == 1 for t in on_time_col])
-    negative = model.declaration.missing_outcome == "negative"
-    included = in_time | (~in_time & negative)
-    late = int((observed & ~in_time).sum())
-    unlabelled = int((~observed).sum())
+    # Few distinct (outcome, in time) pairs: classify each once, then index by row.
+    state_of = state_lookup(
+        horizon_us=horizon_us, missing_negative=model.declaration.missing_outcome == "negative"
+    )
+    kinds: dict[tuple[int | None, int | None], int] = {}
+    code = np.fromiter(
+        (kinds.setdefault(key, len(kinds)) for key in zip(outcome_col, on_time_col, strict=True)),
+        np.intp,
+        len(rows),
+    )
+    # An outcome observed at the prediction time is in time; one past the horizon is late.
+    table = [
+        state_of(0, outcome, None if t is None else (0 if t else horizon_us + 1))
+        for outcome, t in kinds
+    ]
+    late = int(np.array([s.late for s in table])[code].sum())
+    unlabelled = int(np.array([s.unlabelled for s in table])[code].sum())
+    included = np.array([s.included for s in table])[code]
     if not included.any():
         return Bucket(empty_sketch(k), len(rows), late, unlabelled)
-    y = np.array([o if t == 1 else 0 for o, t in zip(outcome_col, on_time_col, strict=True)])
-    ys = y[included]
+    ys = np.array([s.y for s in table])[code][included]
     if k:
         chosen = [orjson.loads(x) for x, keep in zip(probabilities, included, strict=True) if keep]
         sketch: Any = MulticlassSketch.from_arrays(ys, np.asarray(chosen, float))

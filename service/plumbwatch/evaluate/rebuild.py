@@ -14,7 +14,7 @@ from sqlalchemy.engine import Engine
 from plumbwatch.evaluate import deltas as deltas_mod
 from plumbwatch.evaluate.slices import SliceSpec, ValueCap
 from plumbwatch.store import sketches as store_sketches
-from plumbwatch.store.engine import BEGIN_OPTION
+from plumbwatch.store.engine import writing
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.store.sketches import Cursor
 
@@ -37,8 +37,7 @@ def rebuild_model(
     decl = model.declaration
     horizon_us = decl.label_horizon_seconds * 1_000_000
     spec = SliceSpec(keys=decl.segment_keys, crosses=decl.crosses)
-    write = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
-    with write, write.begin():
+    with writing(engine) as write:
         previous = store_sketches.get_cursor(write, model_id=model.id)
         if previous is None:
             return 0

@@ -30,7 +30,7 @@ from plumbwatch.evaluate.slices import SliceSpec, ValueCap
 from plumbwatch.store import evaluations as store_evaluations
 from plumbwatch.store import evidence as store_evidence
 from plumbwatch.store import sketches as store_sketches
-from plumbwatch.store.engine import BEGIN_OPTION
+from plumbwatch.store.engine import writing
 from plumbwatch.store.models import MonitoredModel
 from plumbwatch.store.retention import oldest_prediction_us
 from plumbwatch.store.sketches import (
@@ -181,8 +181,7 @@ def evaluate_model(
         assessment.finish(record, immature_scores)
         record["recalibration"] = recalibration
     ev = assessment.evidence
-    write = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
-    with write, write.begin():
+    with writing(engine) as write:
         if not replay_backwards:
             if store_sketches.get_cursor(write, model_id=model.id) != previous:
                 raise Conflict(

@@ -24,7 +24,7 @@ from plumbwatch.alerts.sinks import build_sinks
 from plumbwatch.config import Settings
 from plumbwatch.errors import PlumbwatchError
 from plumbwatch.store import alerts as store_alerts
-from plumbwatch.store.engine import BEGIN_OPTION
+from plumbwatch.store.engine import writing
 from plumbwatch.store.models import MonitoredModel
 
 log = logging.getLogger(__name__)
@@ -71,8 +71,7 @@ class Alerting:
         with self.engine.connect() as conn:
             due = store_alerts.any_shelf_due(conn, now_us=now_us)
         if due:
-            write = self.engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
-            with write, write.begin():
+            with writing(self.engine) as write:
                 expire_shelves(write, now_us=now_us)
         return self.sender.run_until_idle()
 

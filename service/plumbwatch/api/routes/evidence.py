@@ -18,7 +18,7 @@ from plumbwatch.api.schemas import (
 from plumbwatch.errors import Detail, InvalidInput
 from plumbwatch.store import evidence as store_evidence
 from plumbwatch.store import models as store_models
-from plumbwatch.store.engine import BEGIN_OPTION
+from plumbwatch.store.engine import writing
 from plumbwatch.timefmt import format_instant
 
 router = APIRouter(prefix="/v1/models", tags=["evidence"])
@@ -58,8 +58,7 @@ async def reset_evidence(
             ],
         )
     now_us = request.app.state.clock_us()
-    write = engine.connect().execution_options(**{BEGIN_OPTION: "IMMEDIATE"})
-    with write, write.begin():
+    with writing(engine) as write:
         streams = len(store_evidence.load_streams(write, model_id=found.id))
         done = store_evidence.reset(
             write, model_id=found.id, reason=reason.strip(), actor=principal.name, now_us=now_us
